@@ -1,0 +1,42 @@
+# limbclock: every target creates and uses the local virtual environment .venv
+PY ?= python3
+VENV := .venv
+VPY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed
+MP_DIR := tests/mp/node_modules/@micropython/micropython-webassembly-pyscript
+
+.PHONY: demo test bench lint venv mp clean vectors almanac-fit
+
+$(STAMP): pyproject.toml
+	$(PY) -m venv $(VENV)
+	$(VPY) -m pip install -q --upgrade pip
+	$(VPY) -m pip install -q -e '.[host,fit,test]'
+	touch $(STAMP)
+
+venv: $(STAMP)
+
+$(MP_DIR): tests/mp/package.json
+	cd tests/mp && npm install --no-audit --no-fund --silent
+
+mp: $(MP_DIR)
+
+demo: $(STAMP)
+	$(VPY) -m host demo --out demo-out
+
+lint: $(STAMP)
+	$(VPY) -m ruff check engine device host tests vectors bench
+
+test: $(STAMP) $(MP_DIR) lint
+	$(VPY) -m pytest
+
+bench: $(STAMP) $(MP_DIR)
+	$(VPY) -m bench
+
+vectors: $(STAMP)
+	$(VPY) -m vectors.generate
+
+almanac-fit: $(STAMP)
+	$(VPY) -m host almanac-fit --first-year 2025 --last-year 2050
+
+clean:
+	rm -rf $(VENV) tests/mp/node_modules demo-out

@@ -1,0 +1,1 @@
+"""limbclock benchmarks: ``make bench`` prints figures and ratios (no asserts)."""

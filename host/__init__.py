@@ -1,0 +1,1 @@
+"""limbclock host tool: command line, serial client, archive, plots, exports, fitter."""

@@ -1,0 +1,54 @@
+"""The ``limbclock`` command line.
+
+Each command lives in its own module ``host/cmd_*.py`` with a ``register(sub)``
+function that adds its parser and sets ``func`` (called with the parsed
+arguments, returns an exit code).  ``COMMANDS`` lists them in help order.
+Errors of the engine (``ValueError`` subclasses), file and serial errors and
+``UserError`` print one line and exit 2; ``--debug`` shows the traceback.
+"""
+import argparse
+import importlib
+import sys
+
+COMMANDS = (
+    "host.cmd_doctor",
+)
+
+
+def build_parser():
+    parser = argparse.ArgumentParser(
+        prog="limbclock",
+        description="Timed-contact sights with a fixed-deviation multi-image instrument: "
+                    "almanac, contact schedule, fix, calibration, timer sync.")
+    parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMANDS:
+        importlib.import_module(name).register(sub)
+    return parser
+
+
+def main(argv=None):
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 1
+    try:
+        return args.func(args) or 0
+    except KeyboardInterrupt:
+        print("limbclock: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # one clear line at the edge; the traceback with --debug
+        if args.debug:
+            raise
+        from host.errors import UserError
+        known = (UserError, ValueError, OSError, KeyError)
+        try:
+            import serial
+            known = known + (serial.SerialException,)
+        except ImportError:
+            pass
+        if isinstance(exc, known):
+            print("limbclock %s: error: %s" % (args.command, exc), file=sys.stderr)
+            return 2
+        raise
