@@ -12,6 +12,7 @@ import sys
 
 COMMANDS = (
     "host.cmd_doctor",
+    "host.cmd_ladder",
 )
 
 
