@@ -1,0 +1,55 @@
+"""Plots are produced and well formed: PNG signature and size (PNG specification, ISO/IEC
+15948:2004 section 5.2: the 8-byte signature 89 50 4E 47 0D 0A 1A 0A, then an IHDR chunk
+with width and height), SVG parses as XML in the SVG namespace (W3C SVG 1.1), and every
+plot carries the cautions (host/cautions.py)."""
+import struct
+import xml.etree.ElementTree as ET
+
+import pytest
+
+from host import plots
+from test_exports import FIX, TRACK
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+SVG = "{http://www.w3.org/2000/svg}"
+
+FIX_FULL = dict(FIX, dr={"lat_deg": 41.33, "lon_deg": -9.80},
+                contacts=[dict(c, sigma_nm=0.5) for c in FIX["contacts"]])
+
+
+def read(path):
+    with open(path, encoding="utf-8") as f:
+        return f.read()
+
+
+def png_size(path):
+    with open(path, "rb") as f:
+        head = f.read(24)
+    assert head[:8] == PNG_SIGNATURE and head[12:16] == b"IHDR"
+    return struct.unpack(">II", head[16:24])
+
+
+def test_plotting_sheet_png_and_svg(tmp_path):
+    png = plots.plotting_sheet(FIX_FULL, str(tmp_path / "sheet.png"), track=TRACK, truth=(41.31, -9.86))
+    w, h = png_size(png)
+    assert (w, h) == (round(8.2 * 110), round(8.6 * 110))
+    assert (tmp_path / "sheet.png").stat().st_size > 20000     # a drawn chart, not an empty canvas
+    svg = plots.plotting_sheet(FIX_FULL, str(tmp_path / "sheet.svg"), track=TRACK)
+    root = ET.parse(svg).getroot()
+    assert root.tag == SVG + "svg"
+    text = read(svg)
+    assert "shade glass" in text and "07:50:00 i02" in text and "(rejected)" in text
+
+
+def test_contact_timeline(tmp_path):
+    pred = [{"utc": "2031-05-14T07:49:58Z", "image": "i02"}, {"utc": "2031-05-14T08:10:30Z", "image": "i04"}]
+    w, h = png_size(plots.contact_timeline(FIX_FULL, str(tmp_path / "t.png"), predicted=pred))
+    assert w > 800 and h > 600
+    svg = plots.contact_timeline(FIX_FULL, str(tmp_path / "t.svg"))
+    assert ET.parse(svg).getroot().tag == SVG + "svg"
+    assert "shade glass" in read(svg)
+
+
+def test_bad_extension(tmp_path):
+    with pytest.raises(ValueError, match="must end in .png or .svg"):
+        plots.plotting_sheet(FIX_FULL, str(tmp_path / "sheet.jpg"))
