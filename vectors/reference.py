@@ -106,7 +106,8 @@ def _as_us(t_us):
     return a.astype(np.int64)
 
 
-def _tt_minus_utc_us(t):
+def tt_minus_utc_us(t):
+    """TT - UTC (int64 us) of int64 UTC instants, from ``engine.timescale``'s leap-second table."""
     # the leap-second table changes on whole days: evaluate it once per distinct day
     days = t // US_PER_DAY
     uniq, inv = np.unique(days, return_inverse=True)
@@ -142,17 +143,26 @@ def _unit(v):
     return v / np.linalg.norm(v, axis=-1, keepdims=True)
 
 
-def apparent_cirs(body, t_us, dut1_s=0.0):
+def utc_from_tt(tt_us):
+    """TT instants (int64 us since 1970-01-01T00:00 TT) -> UTC instants (exact except
+    within 70 s after a leap second)."""
+    tt = _as_us(tt_us)
+    return tt - tt_minus_utc_us(tt - 69184000)
+
+
+def apparent_cirs(body, t_us, dut1_s=0.0, tt_us=None):
     """Core of the pipeline: returns a dict of numpy arrays (1-D, length n)
 
     ``ra_cio_deg`` [0, 360), ``dec_deg``, ``era_deg`` [0, 360), ``distance_km``,
     ``tt_jd1``, ``tt_jd2``, and ``cirs`` (n, 3) apparent unit vectors in CIRS.
+    When ``tt_us`` is given (same shape as ``t_us``) it is used as TT instead of
+    the TT derived from ``t_us`` (the fitter works on a TT grid).
     """
     if body not in BODIES:
         raise ValueError("body must be 'sun' or 'moon', got %r" % (body,))
     eph = ephemeris()
     t = _as_us(t_us).ravel()
-    tt = t + _tt_minus_utc_us(t)
+    tt = t + tt_minus_utc_us(t) if tt_us is None else _as_us(tt_us).ravel()
     tt1, tt2 = _two_part_jd(tt)
     ut1, ut2 = _two_part_jd(t + int(round(dut1_s * 1e6)))
     # TDB - TT at the geocentre (Fairhead & Bretagnon 1990, via erfa.dtdb)

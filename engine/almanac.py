@@ -1,0 +1,399 @@
+"""Compact almanac of the Sun and Moon: Chebyshev series in small binary files.
+
+``load()`` gives an ``Almanac`` over the shipped files ``engine/data/YYYY.lca``
+(one file per UTC year, both bodies); it reads one year at a time, when first
+needed, and verifies its CRC-32.  ``Almanac.position(body, t_us)`` returns a
+``Position``: GHA, declination, semi-diameter, horizontal parallax and the
+rates of GHA and declination.  Pure Python, standard library only, and safe
+under MicroPython on a board with single-precision floats.
+
+What is stored.  For each body, consecutive segments of fixed length in TT,
+each holding Chebyshev series (Clenshaw 1955; *Numerical Recipes* 5.8) of
+
+* q0: right ascension measured from the CIO (deg), unwrapped in the segment;
+* q1: declination (deg);
+* q2: Sun: semi-diameter (arcmin); Moon: horizontal parallax (arcmin).
+
+The other of SD/HP is derived: Sun HP = SD x 8.794148"/959.63" (both scale
+as 1/distance; sin HP = a_e/distance at 1 au); Moon sin SD = k sin HP with
+k = 0.2725076 (IAU 1982; ``engine.constants.MOON_K``).  GHA = ERA(UT1) - RA
+(``timescale.era_deg``).  The series were fitted by ``host/almanac_fit.py``
+to the reference pipeline ``vectors/reference.py`` (DE421 + IAU 2006/2000A
+with ERFA: apparent places, light time, deflection, aberration).
+
+File format ``.lca`` version 1 (little-endian; all offsets in bytes)::
+
+    0   4s  magic b"LCAL"
+    4   B   version (1)
+    5   B   number of bodies
+    6   H   year (the UTC year the file serves)
+    8   i   start: TT day number since 1970-01-01 at which every body's first
+            segment begins (00:00 TT)
+    12  ... per body, a block:
+            B body (0 Sun, 1 Moon), B segment length in days, H segments,
+            I offset of the body's bit data, then 3 quantities, each:
+            B degree N, b quantum exponent e (quantum = 2**e in the
+            quantity's unit), N+1 x B bit widths w_0..w_N
+    ...     bit data of each body: segment after segment, in each segment the
+            three quantities' coefficients c_0..c_N, each a two's-complement
+            integer of w_k bits (w_k = 0: the coefficient is zero), packed
+            most significant bit first.  Value = integer x 2**e.  q0's c_0 is
+            reduced to [-180, 180) deg.
+    end-4  I  CRC-32 (binascii.crc32) of every byte before it
+
+Every segment of a body has the same number of bits, so segment i starts at
+bit i x (sum of all widths) of the body's data: evaluation decodes one segment
+only, and keeps the last decoded segment of each body.
+
+Single precision.  Time enters as an integer offset within the segment, so
+x in [-1, 1] keeps its precision; the coefficients are small integers; ERA is
+built from integers by ``timescale.era_deg``.  The arithmetic goes through the
+module-level names ``math`` and ``_float`` so a test can run it rounded to
+single precision (``tests/test_almanac_float32.py``).
+"""
+import math
+import struct
+import binascii
+
+from engine import timescale
+from engine.constants import US_PER_DAY, US_PER_S, MOON_K, AU_KM, SUN_SD_1AU_ARCSEC
+
+MAGIC = b"LCAL"
+VERSION = 1
+BODIES = ("sun", "moon")
+QUANTITIES = ("ra_cio_deg", "dec_deg", "sd_or_hp_arcmin")
+A_E_KM = 6378.137                      # Earth equatorial radius (WGS 84)
+# Sun: HP / SD, both proportional to 1/distance; HP at 1 au = asin(a_e / au) = 8.794148"
+SUN_HP_PER_SD = math.asin(A_E_KM / AU_KM) * (180.0 / math.pi) * 3600.0 / SUN_SD_1AU_ARCSEC
+ERA_RATE_DEG_PER_S = 360.0 * 1.00273781191135448 / 86400.0   # IERS Conventions 2010 eq. 5.15
+_HEADER = "<4sBBHi"
+_HEADER_SIZE = 12
+_BODY = "<BBHI"
+_BODY_SIZE = 8
+
+_float = float          # swapped by the single-precision test (numpy.float32)
+
+
+class AlmanacError(ValueError):
+    """An instant outside the almanac, an unknown body, or a corrupt almanac file."""
+
+
+class Position(object):
+    """Apparent geocentric place of a body at an instant (see ``Almanac.position``)."""
+    __slots__ = ("body", "t_us", "gha_deg", "dec_deg", "sd_arcmin", "hp_arcmin",
+                 "gha_rate_deg_per_s", "dec_rate_deg_per_s")
+
+    def __init__(self, body, t_us, gha_deg, dec_deg, sd_arcmin, hp_arcmin, gha_rate_deg_per_s,
+                 dec_rate_deg_per_s):
+        self.body = body
+        self.t_us = t_us
+        self.gha_deg = gha_deg
+        self.dec_deg = dec_deg
+        self.sd_arcmin = sd_arcmin
+        self.hp_arcmin = hp_arcmin
+        self.gha_rate_deg_per_s = gha_rate_deg_per_s
+        self.dec_rate_deg_per_s = dec_rate_deg_per_s
+
+    def __repr__(self):
+        return "Position(%s, %s, gha_deg=%.5f, dec_deg=%.5f, sd_arcmin=%.3f, hp_arcmin=%.3f)" % (
+            self.body, timescale.format_utc(self.t_us), self.gha_deg, self.dec_deg, self.sd_arcmin,
+            self.hp_arcmin)
+
+
+def _signed_bits(buf, pos, w):
+    """The two's-complement integer of ``w`` bits at bit ``pos`` of ``buf`` (MSB first).
+    Intermediate values never exceed ``w`` bits (small ints on a board)."""
+    v = 0
+    n = w
+    i = pos >> 3
+    s = pos & 7
+    while n > 0:
+        take = 8 - s
+        if take > n:
+            take = n
+        v = (v << take) | ((buf[i] >> (8 - s - take)) & ((1 << take) - 1))
+        n -= take
+        i += 1
+        s = 0
+    if v >= 1 << (w - 1):
+        v -= 1 << w
+    return v
+
+
+def _clenshaw(c, x):
+    """(f, df/dx) of sum c_k T_k(x) by Clenshaw's recurrence and its derivative.
+
+    b_k = c_k + 2x b_{k+1} - b_{k+2}; f = c_0 + x b_1 - b_2
+    d_k = 2 b_{k+1} + 2x d_{k+1} - d_{k+2}; f' = b_1 + x d_1 - d_2
+    (Clenshaw 1955; *Numerical Recipes* 3rd ed. 5.8, 5.9)."""
+    x2 = x + x
+    b1 = b2 = d1 = d2 = _float(0.0)
+    k = len(c) - 1
+    while k >= 1:
+        d0 = (b1 + b1) + x2 * d1 - d2
+        b0 = c[k] + x2 * b1 - b2
+        b2 = b1
+        b1 = b0
+        d2 = d1
+        d1 = d0
+        k -= 1
+    return c[0] + x * b1 - b2, b1 + x * d1 - d2
+
+
+class _Quantity(object):
+    __slots__ = ("degree", "quantum", "widths", "bits")
+
+    def __init__(self, degree, qexp, widths):
+        self.degree = degree
+        self.quantum = _float(2.0 ** qexp)
+        self.widths = widths
+        self.bits = sum(widths)
+
+
+class _BodySeries(object):
+    __slots__ = ("body", "seg_us", "nseg", "bit0", "quantities", "seg_bits", "cached_index", "cached")
+
+    def __init__(self, body, seg_days, nseg, data_offset, quantities):
+        self.body = body
+        self.seg_us = seg_days * US_PER_DAY
+        self.nseg = nseg
+        self.bit0 = data_offset * 8
+        self.quantities = quantities
+        self.seg_bits = 0
+        for q in quantities:
+            self.seg_bits += q.bits
+        self.cached_index = -1
+        self.cached = None
+
+
+class AlmanacYear(object):
+    """One parsed ``.lca`` file: the series of both bodies for one UTC year."""
+    __slots__ = ("year", "start_tt_us", "buf", "series", "size")
+
+    def __init__(self, year, start_tt_us, buf, series):
+        self.year = year
+        self.start_tt_us = start_tt_us
+        self.buf = buf
+        self.series = series
+        self.size = len(buf)
+
+    def end_tt_us(self, body):
+        s = self._series(body)
+        return self.start_tt_us + s.nseg * s.seg_us
+
+    def _series(self, body):
+        for s in self.series:
+            if s.body == body:
+                return s
+        raise AlmanacError("body %r is not in the almanac file for %d" % (body, self.year))
+
+    def _coefficients(self, s, index):
+        if s.cached_index == index:
+            return s.cached
+        buf = self.buf
+        pos = s.bit0 + index * s.seg_bits
+        out = []
+        for q in s.quantities:
+            c = []
+            for w in q.widths:
+                if w:
+                    c.append(_float(_signed_bits(buf, pos, w)))
+                    pos += w
+                else:
+                    c.append(_float(0.0))
+            out.append(c)
+        s.cached = out
+        s.cached_index = index
+        return out
+
+    def evaluate(self, body, tt_us):
+        """([ra_cio_deg, dec_deg, sd_or_hp_arcmin], [their rates per second]) at TT ``tt_us``."""
+        s = self._series(body)
+        off = tt_us - self.start_tt_us
+        index = off // s.seg_us
+        if index < 0 or index >= s.nseg:
+            raise AlmanacError("instant (TT %s) outside the %s series of the almanac file for %d"
+                               % (timescale.format_utc(tt_us), body, self.year))
+        coeffs = self._coefficients(s, index)
+        dt_us = off - index * s.seg_us
+        x = _float(2 * dt_us - s.seg_us) / _float(s.seg_us)
+        dxdt = _float(2 * US_PER_S) / _float(s.seg_us)      # dx per second
+        values = []
+        rates = []
+        for q, c in zip(s.quantities, coeffs):
+            f, df = _clenshaw(c, x)
+            values.append(f * q.quantum)
+            rates.append(df * q.quantum * dxdt)
+        return values, rates
+
+
+def parse(data, name="almanac file"):
+    """Bytes of a ``.lca`` file -> ``AlmanacYear``.  Raises ``AlmanacError`` naming
+    ``name`` and the problem when the file is truncated, corrupt or of another format."""
+    n = len(data)
+    if n < _HEADER_SIZE + 4:
+        raise AlmanacError("%s: truncated (%d bytes)" % (name, n))
+    if data[:4] != MAGIC:
+        raise AlmanacError("%s: not a limbclock almanac file (bad magic %r)" % (name, bytes(data[:4])))
+    (crc,) = struct.unpack("<I", data[n - 4:n])
+    if binascii.crc32(data[:n - 4]) & 0xFFFFFFFF != crc:
+        raise AlmanacError("%s: checksum mismatch (corrupt or truncated file)" % name)
+    _, version, nbodies, year, start_day = struct.unpack(_HEADER, data[:_HEADER_SIZE])
+    if version != VERSION:
+        raise AlmanacError("%s: format version %d, this engine reads version %d" % (name, version, VERSION))
+    pos = _HEADER_SIZE
+    series = []
+    try:
+        for _ in range(nbodies):
+            code, seg_days, nseg, data_offset = struct.unpack(_BODY, data[pos:pos + _BODY_SIZE])
+            pos += _BODY_SIZE
+            if code >= len(BODIES) or seg_days == 0 or nseg == 0:
+                raise AlmanacError("%s: bad body block (body %d, %d-day segments, %d segments)"
+                                   % (name, code, seg_days, nseg))
+            qs = []
+            for _ in range(3):
+                degree, qexp = struct.unpack("<Bb", data[pos:pos + 2])
+                widths = tuple(data[pos + 2:pos + 3 + degree])
+                if len(widths) != degree + 1 or max(widths) > 30:
+                    raise AlmanacError("%s: bad quantity header" % name)
+                pos += 3 + degree
+                qs.append(_Quantity(degree, qexp, widths))
+            s = _BodySeries(BODIES[code], seg_days, nseg, data_offset, qs)
+            if data_offset < _HEADER_SIZE or data_offset * 8 + nseg * s.seg_bits > (n - 4) * 8:
+                raise AlmanacError("%s: %s data runs past the end of the file" % (name, BODIES[code]))
+            series.append(s)
+    except (struct.error, IndexError, TypeError):
+        raise AlmanacError("%s: truncated header" % name)
+    return AlmanacYear(year, start_day * US_PER_DAY, data, series)
+
+
+def _data_dir():
+    f = __file__
+    cut = max(f.rfind("/"), f.rfind("\\"))
+    return (f[:cut] if cut >= 0 else ".") + "/data"
+
+
+def _listdir(path):
+    try:
+        import os
+    except ImportError:         # some MicroPython ports call it uos
+        import uos as os
+    return os, os.listdir(path)
+
+
+def year_of(t_us):
+    """The UTC calendar year of an instant."""
+    return timescale.civil_from_days(t_us // US_PER_DAY)[0]
+
+
+class Almanac(object):
+    """The almanac over a directory of ``YYYY.lca`` files, read lazily one year at a time
+    (the last two years used are kept)."""
+
+    def __init__(self, path, years):
+        self.path = path
+        self.years = years          # sorted list of available years
+        self._cache = []            # [(year, AlmanacYear)], most recent last
+
+    def __repr__(self):
+        return "Almanac(%r, %d-%d)" % (self.path, self.first_year, self.last_year)
+
+    @property
+    def first_year(self):
+        return self.years[0]
+
+    @property
+    def last_year(self):
+        return self.years[-1]
+
+    def span_us(self):
+        """(first instant covered, first instant no longer covered), UTC."""
+        return (timescale.days_from_civil(self.first_year, 1, 1) * US_PER_DAY,
+                timescale.days_from_civil(self.last_year + 1, 1, 1) * US_PER_DAY)
+
+    def year(self, y):
+        """The parsed ``AlmanacYear`` for UTC year ``y`` (read and checked on first use)."""
+        for yy, a in self._cache:
+            if yy == y:
+                return a
+        if y not in self.years:
+            raise AlmanacError("year %d is outside the almanac (%d-%d)" % (y, self.first_year, self.last_year))
+        name = "%s/%d.lca" % (self.path, y)
+        with open(name, "rb") as f:
+            data = f.read()
+        a = parse(data, name)
+        if a.year != y:
+            raise AlmanacError("%s: holds year %d" % (name, a.year))
+        self._cache.append((y, a))
+        if len(self._cache) > 2:
+            self._cache.pop(0)
+        return a
+
+    def position(self, body, t_us, dut1_us=0):
+        """Apparent geocentric place of ``body`` ('sun' or 'moon') at UTC instant ``t_us``
+        (int microseconds), with UT1 = UTC + ``dut1_us``.  Returns a ``Position``:
+        ``gha_deg`` [0, 360), ``dec_deg``, ``sd_arcmin``, ``hp_arcmin``,
+        ``gha_rate_deg_per_s``, ``dec_rate_deg_per_s``."""
+        if body not in BODIES:
+            raise AlmanacError("body must be 'sun' or 'moon', got %r" % (body,))
+        if not isinstance(t_us, int):
+            raise AlmanacError("instant must be an int of microseconds, got %r" % (t_us,))
+        first, end = self.span_us()
+        if not first <= t_us < end:
+            raise AlmanacError("instant %s is outside the almanac (%d-01-01 to %d-12-31)"
+                               % (timescale.format_utc(t_us), self.first_year, self.last_year))
+        a = self.year(year_of(t_us))
+        (ra, dec, third), (ra_rate, dec_rate, _) = a.evaluate(body, timescale.utc_to_tt(t_us))
+        era = _float(timescale.era_deg(t_us, dut1_us))
+        gha = (era - ra) % _float(360.0)
+        if gha >= 360.0:            # a tiny negative remainder can round up to 360
+            gha = _float(0.0)
+        if body == "sun":
+            sd = third
+            hp = third * _float(SUN_HP_PER_SD)
+        else:
+            hp = third
+            sd = math.asin(_float(MOON_K) * math.sin(hp * _float(math.pi / 10800.0))) * _float(10800.0 / math.pi)
+        return Position(body, t_us, gha, dec, sd, hp, _float(ERA_RATE_DEG_PER_S) - ra_rate, dec_rate)
+
+
+def load(path=None):
+    """The ``Almanac`` over the ``YYYY.lca`` files in directory ``path``
+    (default: the shipped ``engine/data``).  Files are read when first needed."""
+    if path is None:
+        path = _data_dir()
+    while len(path) > 1 and path[-1] in "/\\":
+        path = path[:-1]
+    try:
+        _, names = _listdir(path)
+    except OSError:
+        raise AlmanacError("almanac directory %s not found" % path)
+    years = []
+    for n in names:
+        if n.endswith(".lca") and len(n) == 8 and n[:4].isdigit():
+            years.append(int(n[:4]))
+    years.sort()
+    if not years:
+        raise AlmanacError("no almanac files (YYYY.lca) in %s" % path)
+    for i in range(1, len(years)):
+        if years[i] != years[i - 1] + 1:
+            raise AlmanacError("almanac files in %s skip from %d to %d" % (path, years[i - 1], years[i]))
+    return Almanac(path, years)
+
+
+def describe_shipped(path=None):
+    """What the almanac in ``path`` (default: shipped) covers: a dict with ``dir``,
+    ``first_utc``, ``last_utc`` (last instant covered), ``years``, ``files`` and ``bytes``."""
+    alm = load(path)
+    os, _ = _listdir(alm.path)
+    files = []
+    total = 0
+    for y in alm.years:
+        name = "%s/%d.lca" % (alm.path, y)
+        size = os.stat(name)[6]
+        files.append({"file": "%d.lca" % y, "bytes": size})
+        total += size
+    first, end = alm.span_us()
+    return {"dir": alm.path, "first_utc": timescale.format_utc(first, 0),
+            "last_utc": timescale.format_utc(end - US_PER_S, 0),
+            "years": "%d-%d" % (alm.first_year, alm.last_year), "files": files, "bytes": total}
