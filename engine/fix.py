@@ -1,0 +1,409 @@
+"""The fix: iterated least squares over all timed contacts of a session.
+
+Each contact is a line of position (Marcq St Hilaire): the intercept
+p = Ho - Hc (arcmin = nmi, toward the body) at the track's position at the
+contact's instant.  The unknowns are the north and east offsets (nmi) of the
+track at the fix epoch (course and speed held: every line is carried along the
+rhumb line to the epoch), and optionally a common offset b (arcmin) of every
+image's deviation (index error, dip anomaly, personal equation in altitude).
+Linearised: p_i = cos Zn_i dN + sin Zn_i dE - b; each iteration recomputes Hc,
+Zn and Ho at the new position (Gauss-Newton; steps longer than 60 nmi are
+shortened), as in the Nautical Almanac's "position from intercept and azimuth
+by calculation" generalised to weighted least squares (Metcalf & Metcalf,
+Navigation 38(1), 1991 [from memory]).
+
+A-priori error model of the intercepts (arcmin; a full covariance, because the
+largest errors are shared between contacts):
+
+* timing: each contact (rate x sigma_time)^2, with sigma_time^2 = reaction
+  scatter (default 0.25 s)^2 + the stamp's own ``sigma_s``^2, rate = dHs/dt;
+* personal equation left after calibration (``reaction_delay_sigma_s``, default
+  0.2 s when no ``reaction_delay_s`` is given): one time bias for all contacts,
+  covariance rate_i rate_j sigma^2;
+* image deviation: sigma of the image (``sigma_arcmin``, default 1.0'), shared by
+  every contact of that image;
+* dip anomaly (default 0.5'), shared by all contacts;
+* refraction anomaly: one scale error kappa (default 0.05) of the whole
+  atmosphere, covariance kappa^2 R_i R_j;
+* yaw (instrument turned off the body's azimuth by psi, sigma
+  ``observer.yaw_sigma_deg`` of the session, default 0: the observer swings the
+  arc): the contact comes late by a one-sided loss; its mean is taken off the
+  deviation of nominal images (images with ``"source": "calibrated"`` already
+  hold it) and its scatter is independent per contact
+  (``engine.instrument.yaw_sigma_arcmin``).
+
+Error ellipse (95 %): covariance N^-1 of the two position unknowns (the
+offset, when estimated, is marginalised), scaled by k^2 = max(chi2_2(0.95),
+s0^2 2F(2, n-u; 0.95)): the a-priori model when the residuals agree with it,
+the a-posteriori unit weight s0 with the F quantile when they are larger
+(REFERENCES section 2; F(2, v) has the closed form
+P = 1 - (1 + 2x/v)^(-v/2)).
+
+Blunders: Baarda's data snooping (w test with the a-priori covariance,
+w_i = (S^-1 e)_i / sqrt((S^-1 Q_ee S^-1)_ii)); the contact with the largest
+|w| > 3 is dropped and the fix recomputed, until none is left or no
+redundancy remains.  A rejected contact that fits within 3 sigma when read as
+another image of the instrument (or the other limb) is reported as probably
+mislabelled.
+
+The deviation offset is estimated ("auto") when its variance inflation
+(N^-1)_bb N_bb is at most ``MAX_OFFSET_VIF`` and there are at least four
+contacts; otherwise it is held at zero (a warning says so).  In practice it
+needs contacts on both sides of the meridian (rising and setting).
+"""
+import math
+
+from engine.angles import cosd, sind, atan2d
+from engine.constants import US_PER_S
+from engine.corrections import refraction_arcmin, dip_arcmin
+from engine.instrument import invert, yaw_sigma_arcmin
+from engine.model import contact_terms, sextant_altitude_deg
+from engine.sphere import dr_position, move_nm
+from engine.timescale import format_utc
+
+FORMAT = "limbclock-fix/1"
+CHI2_2_95 = 5.991464547107979      # chi-square, 2 degrees of freedom, P = 0.95: -2 ln 0.05
+REJECT_W = 3.0                     # |w| above which the worst contact is dropped (common practice)
+MAX_OFFSET_VIF = 10.0              # largest variance inflation of the offset that is still "estimable"
+MAX_STEP_NM = 60.0
+DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 0.5,
+            "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0}
+
+
+class FixError(ValueError):
+    """No fix can be computed (too few usable contacts, degenerate geometry)."""
+
+
+def f2_quantile(v, p=0.95):
+    """Quantile x of the F(2, v) distribution: P = 1 - (1 + 2x/v)^(-v/2)."""
+    return 0.5 * v * ((1.0 - p) ** (-2.0 / v) - 1.0)
+
+
+def ellipse_k2(s0, dof, p=0.95):
+    """Scale k^2 of the covariance for probability p (see the module docstring)."""
+    k2 = -2.0 * math.log(1.0 - p)
+    if dof >= 1:
+        k2 = max(k2, s0 * s0 * 2.0 * f2_quantile(dof, p))
+    return k2
+
+
+def ellipse(cnn, cne, cee, k2):
+    """(major_nm, minor_nm, major_axis_deg in [0, 180)) of the ellipse k^2 of a
+    north/east covariance (nmi^2)."""
+    half_tr = 0.5 * (cnn + cee)
+    rad = math.sqrt(max(0.0, (0.5 * (cnn - cee)) ** 2 + cne * cne))
+    lmax, lmin = half_tr + rad, max(0.0, half_tr - rad)
+    ang = 0.5 * atan2d(2.0 * cne, cnn - cee)   # from north toward east
+    if ang < 0.0:
+        ang += 180.0
+    if ang >= 180.0:
+        ang -= 180.0
+    return math.sqrt(k2 * lmax), math.sqrt(k2 * lmin), ang
+
+
+class _Line:
+    """Working data of one usable contact."""
+    __slots__ = ("c", "dev_deg", "t_us", "group", "rate", "refr", "var_ind", "sigma_nm", "ho", "hc", "zn",
+                 "p", "p_dr", "lat", "lon", "hc_dr")
+
+
+def _num_extra(d, key, default):
+    v = d.get(key, None)
+    if (isinstance(v, int) or isinstance(v, float)) and not isinstance(v, bool) and v == v and v - v == 0:
+        return float(v)
+    return default
+
+
+def _mat_vec(m, v):
+    return [sum(a * b for a, b in zip(row, v)) for row in m]
+
+
+def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, options=None):
+    """Fix of a validated Session (``engine.session``) with almanac ``alm``.
+
+    ``at_us``: fix epoch (default: the last contact's instant).
+    ``deviation_offset``: "auto" (estimate when estimable), True, False.
+    ``options``: overrides of ``DEFAULTS`` (error model).
+    Returns the ``limbclock-fix/1`` dict (see DEVELOPERS.md).  Raises FixError."""
+    opt = dict(DEFAULTS)
+    if "yaw_sigma_deg" in session.observer_extra:
+        opt["yaw_sigma_deg"] = session.observer_extra["yaw_sigma_deg"]
+    if options:
+        opt.update(options)
+    contacts = session.contacts
+    epoch = at_us if at_us is not None else max(c.t_us for c in contacts)
+    tr = session.track
+    dr_lat, dr_lon = tr.position_at(epoch)
+    obs = session.observer
+    inst_x = session.instrument_extra
+    delay_s = _num_extra(inst_x, "reaction_delay_s", None)
+    if delay_s is None:
+        delay_s = 0.0
+        tb_sigma = opt["reaction_delay_sigma_s"]
+    else:
+        tb_sigma = _num_extra(inst_x, "reaction_delay_sigma_s", 0.05)
+    delay_us = int(round(delay_s * US_PER_S))
+    warnings = []
+    if abs(delay_s) > 0.0:
+        warnings.append("contact times corrected for a reaction delay of %.2f s" % delay_s)
+
+    lines = []
+    reasons = {}
+    for c in contacts:
+        if c.void:
+            reasons[c.index] = "void"
+            continue
+        if c.image is None:
+            reasons[c.index] = "image not identified"
+            continue
+        ln = _Line()
+        ln.c = c
+        ln.t_us = c.t_us - delay_us
+        dev = session.deviation_of(c.image)
+        calibrated = session.image_extra.get(c.image, {}).get("source") == "calibrated"
+        yaw_mean, yaw_rms = yaw_sigma_arcmin(dev, opt["yaw_sigma_deg"])
+        ln.dev_deg = dev if calibrated else dev - yaw_mean / 60.0
+        ln.group = c.image
+        lat, lon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
+        _, rate = sextant_altitude_deg(alm, c.body, c.limb, ln.t_us, lat, lon, obs, dut1_us)
+        ln.rate = rate * 60.0                                         # arcmin/s
+        ha = dev - dip_arcmin(obs.eye_height_m) / 60.0
+        ln.refr = refraction_arcmin(ha, obs.temperature_c, obs.pressure_hpa)
+        st2 = opt["sigma_time_s"] ** 2 + c.sigma_s ** 2
+        ln.var_ind = ln.rate * ln.rate * st2 + yaw_rms * yaw_rms
+        lines.append(ln)
+
+    sig_img = {}
+    for iid, _, s in session.images:
+        sig_img[iid] = s if s is not None else opt["sigma_image_arcmin"]
+
+    def covariance(use):
+        n = len(use)
+        S = [[0.0] * n for _ in range(n)]
+        for i in range(n):
+            a = use[i]
+            for j in range(i, n):
+                b = use[j]
+                v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * a.refr * b.refr + \
+                    tb_sigma * tb_sigma * a.rate * b.rate
+                if a.group == b.group:
+                    v += sig_img[a.group] ** 2
+                if i == j:
+                    v += a.var_ind
+                S[i][j] = v
+                S[j][i] = v
+        for i in range(n):
+            use[i].sigma_nm = math.sqrt(S[i][i])
+        return S
+
+    def evaluate(use, lat_e, lon_e, bias):
+        for ln in use:
+            lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
+            ho, hc, zn = contact_terms(alm, ln.c.body, ln.c.limb, ln.dev_deg + bias / 60.0, ln.t_us, lat, lon,
+                                       obs, dut1_us)
+            ln.ho, ln.hc, ln.zn, ln.lat, ln.lon = ho, hc, zn, lat, lon
+            ln.p = (ho - hc) * 60.0
+
+    def normal(use, W, with_bias):
+        u = 3 if with_bias else 2
+        A = [[cosd(ln.zn), sind(ln.zn), -1.0][:u] for ln in use]
+        n = len(use)
+        WA = [[sum(W[i][k] * A[k][c] for k in range(n)) for c in range(u)] for i in range(n)]
+        N = [[sum(A[k][r] * WA[k][c] for k in range(n)) for c in range(u)] for r in range(u)]
+        return A, WA, N
+
+    def solve(use, lat_e, lon_e, bias, with_bias):
+        W = invert(covariance(use))
+        if W is None:
+            raise FixError("the error model's covariance is singular")
+        its = 0
+        Ninv = None
+        for its in range(1, 31):
+            evaluate(use, lat_e, lon_e, bias)
+            A, WA, N = normal(use, W, with_bias)
+            Ninv = invert(N)
+            if Ninv is None:
+                raise FixError("the lines of position do not cross (azimuths too alike): no fix")
+            rhs = [sum(WA[k][c] * use[k].p for k in range(len(use))) for c in range(len(N))]
+            dx = _mat_vec(Ninv, rhs)
+            step = math.sqrt(dx[0] ** 2 + dx[1] ** 2)
+            if step > MAX_STEP_NM:
+                dx = [v * MAX_STEP_NM / step for v in dx]
+            lat_e, lon_e = move_nm(lat_e, lon_e, dx[0], dx[1])
+            if with_bias:
+                bias += dx[2]
+            if step < 1e-4 and (not with_bias or abs(dx[2]) < 1e-4):
+                break
+        else:
+            warnings.append("the fix did not converge in 30 iterations")
+        evaluate(use, lat_e, lon_e, bias)
+        A, WA, N = normal(use, W, with_bias)
+        Ninv = invert(N)
+        if Ninv is None:
+            raise FixError("the lines of position do not cross (azimuths too alike): no fix")
+        return lat_e, lon_e, bias, W, A, WA, N, Ninv, its
+
+    def offset_estimable(use):
+        if deviation_offset is False or len(use) < 4:
+            return False
+        if deviation_offset is True:
+            return True
+        evaluate(use, dr_lat, dr_lon, 0.0)
+        W = invert(covariance(use))
+        if W is None:
+            return False
+        _, _, N = normal(use, W, True)
+        Ninv = invert(N)
+        return Ninv is not None and Ninv[2][2] * N[2][2] <= MAX_OFFSET_VIF
+
+    use = list(lines)
+    if len(use) < 2:
+        raise FixError("%d usable contact(s): a fix needs at least two lines of position" % len(use))
+    rejected_reason = {}
+    lat_e, lon_e, bias = dr_lat, dr_lon, 0.0
+    iterations = 0
+    while True:
+        with_bias = offset_estimable(use)
+        if not with_bias:
+            bias = 0.0
+        lat_e, lon_e, bias, W, A, WA, N, Ninv, its = solve(use, lat_e, lon_e, bias, with_bias)
+        iterations += its
+        n, u = len(use), len(N)
+        e = [ln.p for ln in use]                     # residuals at the converged solution
+        g = _mat_vec(W, e)
+        q = sum(a * b for a, b in zip(e, g))
+        dof = n - u
+        s0 = math.sqrt(q / dof) if dof > 0 else 0.0
+        if dof < 1:
+            break
+        worst, worst_w = -1, 0.0
+        for i in range(n):
+            bi = WA[i]
+            m_ii = W[i][i] - sum(bi[r] * sum(Ninv[r][c] * bi[c] for c in range(u)) for r in range(u))
+            if m_ii <= 1e-12 * W[i][i]:
+                continue
+            w = g[i] / math.sqrt(m_ii)
+            if abs(w) > abs(worst_w):
+                worst, worst_w = i, w
+        if worst < 0 or abs(worst_w) <= REJECT_W or n - 1 < 2:
+            break
+        bad = use.pop(worst)
+        rejected_reason[bad.c.index] = (bad, worst_w)
+
+    cnn, cne, cee = Ninv[0][0], Ninv[0][1], Ninv[1][1]
+    k2 = ellipse_k2(s0, dof)
+    major, minor, axis = ellipse(cnn, cne, cee, k2)
+    if dof < 1:
+        warnings.append("no redundancy (%d contacts for %d unknowns): the ellipse rests on the a-priori "
+                        "error model alone and blunders cannot be detected" % (len(use), u))
+    if deviation_offset == "auto" and u == 2 and len(lines) >= 4:
+        warnings.append("deviation offset not estimable from these azimuths: held at 0 "
+                        "(contacts on both sides of the meridian make it estimable)")
+    zns = [ln.zn for ln in use]
+    spread = _azimuth_spread(zns)
+    if spread < 30.0:
+        warnings.append("poor geometry: the lines of position span only %.0f deg of azimuth" % spread)
+    run_h = (max(ln.t_us for ln in use) - min(ln.t_us for ln in use)) / 3.6e9
+    if run_h > 0.5 and not tr.known:
+        warnings.append("running fix over %.1f h: it assumes the DR course %.0f deg and speed %.1f kn held"
+                        % (run_h, tr.course_deg, tr.speed_kn))
+
+    # per-contact report
+    out_contacts = []
+    used_idx = set(ln.c.index for ln in use)
+    by_index = {}
+    for ln in lines:
+        by_index[ln.c.index] = ln
+    # evaluate rejected lines at the fix too, and the intercept of every line at the DR
+    for ln in lines:
+        lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
+        ho, hc, zn = contact_terms(alm, ln.c.body, ln.c.limb, ln.dev_deg + bias / 60.0, ln.t_us, lat, lon,
+                                   obs, dut1_us)
+        ln.ho, ln.hc, ln.zn, ln.lat, ln.lon, ln.p = ho, hc, zn, lat, lon, (ho - hc) * 60.0
+        dlat, dlon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
+        ho_dr, hc_dr, _ = contact_terms(alm, ln.c.body, ln.c.limb, ln.dev_deg + bias / 60.0, ln.t_us, dlat,
+                                        dlon, obs, dut1_us)
+        ln.p_dr = (ho_dr - hc_dr) * 60.0
+    for c in contacts:
+        ln = by_index.get(c.index)
+        entry = {"index": c.index, "utc": format_utc(c.t_us), "body": c.body, "limb": c.limb, "image": c.image,
+                 "deviation_deg": None, "ho_deg": None, "hc_deg": None, "zn_deg": None, "intercept_nm": None,
+                 "residual_nm": None, "sigma_nm": None, "used": False, "reason": reasons.get(c.index),
+                 "direction": None}
+        if ln is not None:
+            entry["deviation_deg"] = session.deviation_of(c.image)
+            entry["ho_deg"] = ln.ho
+            entry["hc_deg"] = ln.hc
+            entry["zn_deg"] = ln.zn
+            entry["intercept_nm"] = ln.p_dr
+            entry["residual_nm"] = ln.p
+            entry["sigma_nm"] = ln.sigma_nm
+            entry["direction"] = "rising" if ln.rate >= 0.0 else "setting"
+            entry["used"] = c.index in used_idx
+            if c.index in rejected_reason:
+                entry["reason"] = _reject_reason(session, alm, ln, rejected_reason[c.index][1], bias, obs,
+                                                 dut1_us, opt)
+        out_contacts.append(entry)
+
+    rejected = [c.index for c in contacts if c.index not in used_idx]
+    if rejected_reason:
+        warnings.append("%d contact(s) rejected as blunders: %s"
+                        % (len(rejected_reason), ", ".join(str(i) for i in sorted(rejected_reason))))
+    return {"format": FORMAT, "utc": format_utc(epoch), "lat_deg": lat_e, "lon_deg": lon_e,
+            "ellipse_95": {"major_nm": major, "minor_nm": minor, "major_axis_deg": axis},
+            "contacts_used": len(use), "rejected": rejected, "images": [c.image for c in contacts],
+            "deviation_offset_arcmin": bias if u == 3 else None, "deviation_offset_estimated": u == 3,
+            "sigma0": s0, "dr": {"lat_deg": dr_lat, "lon_deg": dr_lon}, "iterations": iterations,
+            "warnings": warnings, "contacts": out_contacts}
+
+
+def _azimuth_spread(zns):
+    """Spread (deg) of azimuths as lines: the largest angle between two LOP directions, 0..90*2."""
+    best = 0.0
+    for a in zns:
+        for b in zns:
+            d = abs(a - b) % 180.0
+            d = min(d, 180.0 - d)
+            if d > best:
+                best = d
+    return best
+
+
+def _reject_reason(session, alm, ln, w, bias, obs, dut1_us, opt):
+    """Why a contact was rejected, with the mislabelled-image diagnosis."""
+    text = "residual %+.1f' = %.1f sigma" % (ln.p, abs(w))
+    c = ln.c
+    best = None
+    for iid, dev, _ in session.images:
+        if iid == c.image:
+            continue
+        d = dev if session.image_extra.get(iid, {}).get("source") == "calibrated" else \
+            dev - yaw_sigma_arcmin(dev, opt["yaw_sigma_deg"])[0] / 60.0
+        ho, hc, _ = contact_terms(alm, c.body, c.limb, d + bias / 60.0, ln.t_us, ln.lat, ln.lon, obs, dut1_us)
+        r = (ho - hc) * 60.0
+        if abs(r) <= 3.0 * ln.sigma_nm and (best is None or abs(r) < abs(best[1])):
+            best = (iid, r, dev)
+    if best is not None:
+        spacing = (session.deviation_of(c.image) - best[2]) * 60.0
+        text += "; %+.1f' = %.2f image spacing %s->%s: probably mislabelled (as %s it fits within %.1f')" % (
+            spacing, ln.p / spacing if spacing else 0.0, c.image, best[0], best[0], abs(best[1]))
+        return text
+    other = "upper" if c.limb == "lower" else "lower"
+    ho, hc, _ = contact_terms(alm, c.body, other, ln.dev_deg + bias / 60.0, ln.t_us, ln.lat, ln.lon, obs, dut1_us)
+    r = (ho - hc) * 60.0
+    if abs(r) <= 3.0 * ln.sigma_nm:
+        text += "; fits the %s limb within %.1f': probably the wrong limb" % (other, abs(r))
+    return text
+
+
+def lop_points(fix, contact, half_length_nm=10.0):
+    """Two ends (lat, lon) of a contact's line of position at the fix epoch, for plotting:
+    the line perpendicular to Zn through the point ``residual_nm`` from the fix toward Zn."""
+    zn = contact["zn_deg"]
+    r = contact["residual_nm"]
+    n0, e0 = r * cosd(zn), r * sind(zn)
+    pts = []
+    for s in (-half_length_nm, half_length_nm):
+        pts.append(move_nm(fix["lat_deg"], fix["lon_deg"], n0 - s * sind(zn), e0 + s * cosd(zn)))
+    return pts
+

@@ -1,0 +1,312 @@
+"""Reader of ``limbclock-session/1`` files (JSON), with validation.
+
+A session holds the observer (height of eye, weather), the instrument's images
+(id and deviation), the ship's dead-reckoning track and the timed contacts;
+see DESIGN.md and DEVELOPERS.md ("Sight reduction") for the format.  Every
+problem raises ``SessionError`` whose message starts with the path of the field
+(``contacts[3].utc: ...``).  Keys this reader does not know are kept
+(``Session.extra`` at the top level, ``Contact.extra`` per contact) and written
+back by ``to_dict``.
+
+Optional keys with defaults: ``observer.temperature_c`` (10), ``observer.pressure_hpa``
+(1010), ``instrument.images[].sigma_arcmin`` (none: the fix's default),
+``track.course_deg`` and ``track.speed_kn`` (0), ``track.known`` (false),
+``contacts[].image`` (null), ``contacts[].sigma_s`` (stamp uncertainty, s; 0),
+``contacts[].void`` (false: a void contact is kept but never used),
+``observer.yaw_sigma_deg`` (how far, 1 sigma, the observer holds the instrument
+turned off the body's azimuth; default 0: swinging the arc, or calibrated away),
+``instrument.reaction_delay_s`` and ``instrument.reaction_delay_sigma_s`` (the
+calibrated personal equation, as in ``limbclock-instrument/1`` files).
+"""
+import json
+
+from engine.model import Observer, Track, BODIES, LIMBS
+from engine.timescale import parse_utc, format_utc
+
+FORMAT = "limbclock-session/1"
+_TOP_KEYS = ("format", "observer", "instrument", "track", "contacts")
+_CONTACT_KEYS = ("utc", "body", "limb", "image", "sigma_s", "void")
+
+
+class SessionError(ValueError):
+    """A malformed session; the message names the field path and the problem."""
+
+
+class Contact:
+    """One timed contact: instant, body, limb, image id (or None) and its index in the file."""
+    __slots__ = ("t_us", "body", "limb", "image", "index", "sigma_s", "void", "extra")
+
+    def __init__(self, t_us, body, limb, image=None, index=0, sigma_s=0.0, void=False, extra=None):
+        self.t_us = int(t_us)
+        self.body = body
+        self.limb = limb
+        self.image = image
+        self.index = index
+        self.sigma_s = float(sigma_s)
+        self.void = bool(void)
+        self.extra = extra if extra is not None else {}
+
+    def to_dict(self):
+        d = {"utc": format_utc(self.t_us, 6), "body": self.body, "limb": self.limb, "image": self.image}
+        if self.sigma_s:
+            d["sigma_s"] = self.sigma_s
+        if self.void:
+            d["void"] = True
+        for k in self.extra:
+            d[k] = self.extra[k]
+        return d
+
+
+class Session:
+    """A validated session: ``observer`` (Observer), ``images`` (list of
+    ``(id, deviation_deg, sigma_arcmin or None)``), ``track`` (Track),
+    ``contacts`` (list of Contact), ``extra`` (unknown top-level keys)."""
+    __slots__ = ("observer", "images", "track", "contacts", "extra", "instrument_extra", "image_extra",
+                 "observer_extra", "track_extra")
+
+    def __init__(self, observer, images, track, contacts, extra=None, instrument_extra=None, image_extra=None,
+                 observer_extra=None, track_extra=None):
+        self.observer = observer
+        self.images = images
+        self.track = track
+        self.contacts = contacts
+        self.extra = extra if extra is not None else {}
+        self.instrument_extra = instrument_extra if instrument_extra is not None else {}
+        self.image_extra = image_extra if image_extra is not None else {}   # id -> unknown keys
+        self.observer_extra = observer_extra if observer_extra is not None else {}
+        self.track_extra = track_extra if track_extra is not None else {}
+
+    def deviation_of(self, image_id):
+        """Deviation (deg) of an image id; SessionError if the instrument lacks it."""
+        for i, dev, _ in self.images:
+            if i == image_id:
+                return dev
+        raise SessionError("image %r is not in the instrument" % (image_id,))
+
+    def sigma_of(self, image_id):
+        """The image's own sigma (arcmin) or None."""
+        for i, _, s in self.images:
+            if i == image_id:
+                return s
+        return None
+
+    def to_dict(self):
+        images = []
+        for i, dev, s in self.images:
+            d = {"id": i, "deviation_deg": dev}
+            if s is not None:
+                d["sigma_arcmin"] = s
+            ex = self.image_extra.get(i, {})
+            for k in ex:
+                d[k] = ex[k]
+            images.append(d)
+        inst = {"images": images}
+        for k in self.instrument_extra:
+            inst[k] = self.instrument_extra[k]
+        ob = self.observer.to_dict()
+        for k in self.observer_extra:
+            ob[k] = self.observer_extra[k]
+        tr = self.track.to_dict()
+        for k in self.track_extra:
+            tr[k] = self.track_extra[k]
+        out = {"format": FORMAT, "observer": ob, "instrument": inst,
+               "track": tr, "contacts": [c.to_dict() for c in self.contacts]}
+        for k in self.extra:
+            out[k] = self.extra[k]
+        return out
+
+
+def _is_number(x):
+    return (isinstance(x, int) or isinstance(x, float)) and not isinstance(x, bool)
+
+
+def _number(obj, key, path, lo=None, hi=None, default=None, required=True):
+    if key not in obj:
+        if required:
+            raise SessionError("%s.%s: missing (a number is required)" % (path, key))
+        return default
+    x = obj[key]
+    if not _is_number(x):
+        raise SessionError("%s.%s: must be a number, got %s" % (path, key, _show(x)))
+    x = float(x)
+    if x != x or x - x != 0.0:
+        raise SessionError("%s.%s: must be a finite number, got %r" % (path, key, x))
+    if (lo is not None and x < lo) or (hi is not None and x > hi):
+        raise SessionError("%s.%s: %r outside %r..%r" % (path, key, x, lo, hi))
+    return x
+
+
+def _show(x):
+    s = json.dumps(x) if isinstance(x, (str, list, dict, bool)) or x is None else repr(x)
+    return s if len(s) <= 40 else s[:37] + "..."
+
+
+def _obj(parent, key):
+    if key not in parent:
+        raise SessionError("%s: missing (an object is required)" % key)
+    v = parent[key]
+    if not isinstance(v, dict):
+        raise SessionError("%s: must be an object, got %s" % (key, _show(v)))
+    return v
+
+
+def _time(obj, key, path):
+    if key not in obj:
+        raise SessionError("%s.%s: missing (ISO 8601 UTC text is required)" % (path, key))
+    try:
+        return parse_utc(obj[key])
+    except ValueError as e:
+        raise SessionError("%s.%s: %s" % (path, key, e))
+
+
+def _choice(obj, key, path, choices):
+    if key not in obj:
+        raise SessionError("%s.%s: missing (one of %s)" % (path, key, ", ".join(choices)))
+    v = obj[key]
+    if v not in choices or not isinstance(v, str):
+        raise SessionError("%s.%s: must be one of %s, got %s" % (path, key, ", ".join(choices), _show(v)))
+    return v
+
+
+def parse_session(text, alm=None):
+    """Validate ``limbclock-session/1`` JSON text (str or bytes) and return a Session.
+
+    With ``alm`` (an almanac with ``span_us()``), contacts and the track epoch
+    must lie within the almanac's span.  Raises SessionError."""
+    if isinstance(text, (bytes, bytearray)):
+        try:
+            text = text.decode("utf-8")
+        except UnicodeError:
+            raise SessionError("session: not UTF-8 text")
+    if not isinstance(text, str):
+        raise SessionError("session: expected JSON text, got %s" % type(text).__name__)
+    try:
+        data = json.loads(text)
+    except ValueError as e:
+        raise SessionError("session: not valid JSON (%s)" % e)
+    return session_from_dict(data, alm)
+
+
+def session_from_dict(data, alm=None):
+    """Validate an already decoded session (a dict) and return a Session."""
+    if not isinstance(data, dict):
+        raise SessionError("session: must be a JSON object, got %s" % _show(data))
+    if data.get("format") != FORMAT:
+        if "format" not in data:
+            raise SessionError("format: missing (expected %r)" % FORMAT)
+        raise SessionError("format: expected %r, got %s" % (FORMAT, _show(data["format"])))
+
+    o = _obj(data, "observer")
+    observer = Observer(_number(o, "eye_height_m", "observer", 0.0, 100.0),
+                        _number(o, "temperature_c", "observer", -40.0, 55.0, 10.0, False),
+                        _number(o, "pressure_hpa", "observer", 850.0, 1100.0, 1010.0, False))
+    observer_extra = {}
+    for key in o:
+        if key not in ("eye_height_m", "temperature_c", "pressure_hpa"):
+            observer_extra[key] = o[key]
+    if "yaw_sigma_deg" in o:
+        observer_extra["yaw_sigma_deg"] = _number(o, "yaw_sigma_deg", "observer", 0.0, 10.0)
+
+    inst = _obj(data, "instrument")
+    if "images" not in inst:
+        raise SessionError("instrument.images: missing (a list of images is required)")
+    raw_images = inst["images"]
+    if not isinstance(raw_images, list) or not raw_images:
+        raise SessionError("instrument.images: must be a non-empty list, got %s" % _show(raw_images))
+    images = []
+    image_extra = {}
+    seen = {}
+    for k, im in enumerate(raw_images):
+        p = "instrument.images[%d]" % k
+        if not isinstance(im, dict):
+            raise SessionError("%s: must be an object, got %s" % (p, _show(im)))
+        if "id" not in im:
+            raise SessionError("%s.id: missing (an image id text is required)" % p)
+        iid = im["id"]
+        if not isinstance(iid, str) or not iid:
+            raise SessionError("%s.id: must be a non-empty text, got %s" % (p, _show(iid)))
+        if iid in seen:
+            raise SessionError("%s.id: %r repeats instrument.images[%d]" % (p, iid, seen[iid]))
+        seen[iid] = k
+        dev = _number(im, "deviation_deg", p, 0.5, 89.0)
+        sig = _number(im, "sigma_arcmin", p, 0.0, 600.0, None, False)
+        if sig is not None and sig <= 0.0:
+            raise SessionError("%s.sigma_arcmin: must be > 0, got %r" % (p, sig))
+        images.append((iid, dev, sig))
+        ex = {}
+        for key in im:
+            if key not in ("id", "deviation_deg", "sigma_arcmin"):
+                ex[key] = im[key]
+        image_extra[iid] = ex
+
+    tr = _obj(data, "track")
+    known = tr.get("known", False)
+    if not isinstance(known, bool):
+        raise SessionError("track.known: must be true or false, got %s" % _show(known))
+    track = Track(_time(tr, "utc", "track"), _number(tr, "lat_deg", "track", -89.0, 89.0),
+                  _number(tr, "lon_deg", "track", -180.0, 360.0),
+                  _number(tr, "course_deg", "track", 0.0, 360.0, 0.0, False),
+                  _number(tr, "speed_kn", "track", 0.0, 60.0, 0.0, False), known)
+    if track.lon_deg >= 180.0:
+        track.lon_deg -= 360.0
+    track_extra = {}
+    for key in tr:
+        if key not in ("utc", "lat_deg", "lon_deg", "course_deg", "speed_kn", "known"):
+            track_extra[key] = tr[key]
+
+    if "contacts" not in data:
+        raise SessionError("contacts: missing (a list of contacts is required)")
+    raw_contacts = data["contacts"]
+    if not isinstance(raw_contacts, list):
+        raise SessionError("contacts: must be a list, got %s" % _show(raw_contacts))
+    if not raw_contacts:
+        raise SessionError("contacts: empty (a session needs at least one contact)")
+    span = _span(alm)
+    contacts = []
+    for k, c in enumerate(raw_contacts):
+        p = "contacts[%d]" % k
+        if not isinstance(c, dict):
+            raise SessionError("%s: must be an object, got %s" % (p, _show(c)))
+        t = _time(c, "utc", p)
+        if span is not None and not span[0] <= t < span[1]:
+            raise SessionError("%s.utc: %s is outside the almanac's span %s .. %s"
+                               % (p, format_utc(t), format_utc(span[0], 0), format_utc(span[1] - 1000000, 0)))
+        body = _choice(c, "body", p, BODIES)
+        limb = _choice(c, "limb", p, LIMBS)
+        image = c.get("image")
+        if image is not None:
+            if not isinstance(image, str):
+                raise SessionError("%s.image: must be an image id text or null, got %s" % (p, _show(image)))
+            if image not in seen:
+                raise SessionError("%s.image: %r is not in the instrument (have %s)"
+                                   % (p, image, ", ".join(i for i, _, _ in images)))
+        sigma_s = _number(c, "sigma_s", p, 0.0, 60.0, 0.0, False)
+        void = c.get("void", False)
+        if not isinstance(void, bool):
+            raise SessionError("%s.void: must be true or false, got %s" % (p, _show(void)))
+        extra = {}
+        for key in c:
+            if key not in _CONTACT_KEYS:
+                extra[key] = c[key]
+        contacts.append(Contact(t, body, limb, image, k, sigma_s, void, extra))
+    extra = {}
+    for key in data:
+        if key not in _TOP_KEYS:
+            extra[key] = data[key]
+    inst_extra = {}
+    for key in inst:
+        if key != "images":
+            inst_extra[key] = inst[key]
+    return Session(observer, images, track, contacts, extra, inst_extra, image_extra, observer_extra,
+                   track_extra)
+
+
+def _span(alm):
+    """(first_us, end_us) the almanac covers (end excluded), or None when unknown."""
+    if alm is None:
+        return None
+    f = getattr(alm, "span_us", None)
+    if f is None:
+        return None
+    s = f() if callable(f) else f
+    return int(s[0]), int(s[1])
