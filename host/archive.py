@@ -532,20 +532,30 @@ def session_document(conn, session_id):
                            "--eye-height ... --track ... --instrument FILE`)"
                            % (session_id, ", ".join(m.replace("_id", "") for m in missing), session_id))
     inst = get_instrument(conn, s["instrument_id"])
-    rows = session_contacts(conn, s)
+    rows = session_contacts(conn, s, include_voided=True)
     doc = {"format": "limbclock-session/1",
            "observer": json.loads(s["observer"]),
            "instrument": {"images": [{"id": im["id"], "deviation_deg": im["deviation_deg"]}
                                      for im in inst["images"]]},
            "track": json.loads(s["track"]),
-           "contacts": [{"utc": timescale.format_utc(c["utc_us"], 6), "body": c["body"], "limb": c["limb"],
-                         "image": c["image"], "seq": c["seq"], "time_quality": c["quality"],
-                         "time_uncertainty_us": c["uncertainty_us"]} for c in rows],
+           "contacts": [_session_contact(c) for c in rows],
            "archive": {"session_id": session_id, "device": s["device_id"], "session_no": s["session_no"]}}
     for im_doc, im in zip(doc["instrument"]["images"], inst["images"]):
         if im.get("sigma_arcmin") is not None:
             im_doc["sigma_arcmin"] = im["sigma_arcmin"]
     return doc
+
+
+def _session_contact(c):
+    """One archived contact in session-file form: the timer's stamp uncertainty becomes
+    ``sigma_s``; a voided contact is kept with ``void: true`` (never used by the fix)."""
+    d = {"utc": timescale.format_utc(c["utc_us"], 6), "body": c["body"], "limb": c["limb"], "image": c["image"],
+         "seq": c["seq"], "time_quality": c["quality"]}
+    if c["uncertainty_us"]:
+        d["sigma_s"] = min(c["uncertainty_us"] / 1e6, 60.0)
+    if c["void"]:
+        d["void"] = True
+    return d
 
 
 def session_text(db, session_id):

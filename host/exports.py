@@ -8,8 +8,8 @@ Geometry
 --------
 - A line of position at the fix epoch is the line perpendicular to the
   contact's azimuth ``zn_deg`` through the point ``residual_nm`` from the fix
-  toward ``zn_deg`` (Marcq St Hilaire); exported ``LOP_HALF_LENGTH_NM`` each
-  side of that point.
+  toward ``zn_deg`` (Marcq St Hilaire; ``engine.fix.lop_points``); exported
+  ``LOP_HALF_LENGTH_NM`` each side of that point.
 - The 95 % ellipse has semi-axes ``major_nm``/``minor_nm`` and its major axis
   at ``major_axis_deg`` true; exported as a closed ring of ``ELLIPSE_POINTS``.
 - Local offsets in nmi go to latitude/longitude with ``engine.sphere.move_nm``;
@@ -27,6 +27,7 @@ import math
 from xml.sax.saxutils import escape, quoteattr
 
 from engine import sphere, timescale
+from engine.fix import lop_points
 from engine.angles import cosd, fmt_lat, fmt_lon, sind
 
 GPX_NS = "http://www.topografix.com/GPX/1/1"
@@ -41,17 +42,6 @@ FIX_COLUMNS = ("fix_id", "session_id", "utc", "lat_deg", "lon_deg", "lat", "lon"
 
 
 # --------------------------------------------------------------------------- geometry
-
-def lop_points(fix, contact, half_length_nm=LOP_HALF_LENGTH_NM):
-    """The two ends (lat_deg, lon_deg) of one contact's line of position at the fix epoch."""
-    zn = contact["zn_deg"]
-    r = contact["residual_nm"]
-    n0, e0 = r * cosd(zn), r * sind(zn)
-    dn, de = -sind(zn) * half_length_nm, cosd(zn) * half_length_nm   # along the line (Zn + 90)
-    a = sphere.move_nm(fix["lat_deg"], fix["lon_deg"], n0 - dn, e0 - de)
-    b = sphere.move_nm(fix["lat_deg"], fix["lon_deg"], n0 + dn, e0 + de)
-    return a, b
-
 
 def ellipse_points(fix, npoints=ELLIPSE_POINTS, ellipse=None):
     """Closed ring (first point repeated last) of (lat_deg, lon_deg) on the 95 % ellipse,
@@ -177,7 +167,7 @@ def geojson(fixes, tracks=()):
         for c in r.get("contacts", []):
             if c.get("residual_nm") is None or c.get("zn_deg") is None:
                 continue
-            a, b = lop_points(r, c)
+            a, b = lop_points(r, c, LOP_HALF_LENGTH_NM)
             feats.append({"type": "Feature", "geometry": {"type": "LineString", "coordinates": [_ll(a), _ll(b)]},
                           "properties": {"kind": "lop", "fix": name, "index": c.get("index"), "utc": c.get("utc"),
                                          "image": c.get("image"), "zn_deg": c["zn_deg"],

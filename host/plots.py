@@ -29,6 +29,7 @@ import math
 import textwrap
 
 from engine import sphere, timescale
+from engine.fix import lop_points
 from engine.angles import cosd, fmt_lat, fmt_lon, sind, split_dm
 from host import exports
 from host.cautions import CAUTION_SHORT
@@ -143,11 +144,11 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
             continue
         used = c.get("used", True)
         colour = COLOURS[n % len(COLOURS)] if used else REJECTED
-        a, b = exports.lop_points(fix, c, half_length_nm=2.5 * r_nm)
+        a, b = lop_points(fix, c, half_length_nm=2.5 * r_nm)
         ax.plot([a[1], b[1]], [a[0], b[0]], color=colour, lw=1.6 if used else 1.0, ls="-" if used else "--",
                 zorder=3, label=None if used or legend_rejected else "rejected line")
         legend_rejected = legend_rejected or not used
-        foot = exports.lop_points(fix, c, half_length_nm=0.0)[0]
+        foot = lop_points(fix, c, half_length_nm=0.0)[0]
         # the azimuth arrow at the foot, a tenth of the view long
         tip = sphere.move_nm(foot[0], foot[1], 0.12 * r_nm * cosd(c["zn_deg"]), 0.12 * r_nm * sind(c["zn_deg"]))
         ax.annotate("", xy=(tip[1], tip[0]), xytext=(foot[1], foot[0]),

@@ -159,9 +159,15 @@ def test_session_document_round_trip(tmp_path):
     # DESIGN.md limbclock-session/1: format, observer, instrument.images, track, contacts[utc, body, limb, image]
     assert doc["format"] == "limbclock-session/1"
     assert doc["instrument"]["images"][1] == {"id": "i02", "deviation_deg": 8.1, "sigma_arcmin": 0.4}
-    assert [(c["utc"], c["limb"], c["image"]) for c in doc["contacts"]] == [
-        ("2031-05-14T07:06:40.000000Z", "upper", "i02")]   # the voided seq 0 is left out
-    assert timescale.parse_utc(doc["contacts"][0]["utc"]) == T0 + 400000000
+    assert [(c["utc"], c["limb"], c["image"], c.get("void", False), c["sigma_s"]) for c in doc["contacts"]] == [
+        ("2031-05-14T07:00:00.000000Z", "lower", None, True, 0.0004),      # voided: kept, marked
+        ("2031-05-14T07:06:40.000000Z", "upper", "i02", False, 0.0004)]
+    assert timescale.parse_utc(doc["contacts"][1]["utc"]) == T0 + 400000000
+    # the engine's reader accepts it (DESIGN.md contract)
+    from engine.session import parse_session
+    s = parse_session(json.dumps(doc))
+    assert [c.void for c in s.contacts] == [True, False] and s.contacts[1].image == "i02"
+    assert s.observer.eye_height_m == 2.4 and s.track.course_deg == 135.0
 
 
 def test_store_fix_and_read_back(tmp_path):

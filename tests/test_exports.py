@@ -22,6 +22,7 @@ import xml.etree.ElementTree as ET
 import pytest
 
 from engine import timescale
+from engine.fix import lop_points
 from host import archive, exports
 
 GPX = "{http://www.topografix.com/GPX/1/1}"
@@ -99,8 +100,8 @@ def test_geojson_types_order_and_rings():
 
 def test_lop_is_perpendicular_to_azimuth_at_the_residual():
     for c in FIX["contacts"]:
-        a, b = exports.lop_points(FIX, c)
-        mid = exports.lop_points(FIX, c, half_length_nm=0.0)[0]
+        a, b = lop_points(FIX, c, exports.LOP_HALF_LENGTH_NM)
+        mid = lop_points(FIX, c, half_length_nm=0.0)[0]
         # the foot of the line lies residual_nm from the fix toward Zn (away if negative)
         d = haversine_nm(FIX["lat_deg"], FIX["lon_deg"], mid[0], mid[1])
         assert d == pytest.approx(abs(c["residual_nm"]), abs=0.002)
