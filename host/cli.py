@@ -13,6 +13,7 @@ import sys
 COMMANDS = (
     "host.cmd_doctor",
     "host.cmd_ladder",
+    "host.cmd_plan",
     "host.cmd_almanac",
     "host.cmd_archive",
 )
