@@ -39,7 +39,11 @@ the a-posteriori unit weight s0 with the F quantile when they are larger
 (REFERENCES section 2; F(2, v) has the closed form
 P = 1 - (1 + 2x/v)^(-v/2)).
 
-Blunders: Baarda's data snooping (w test with the a-priori covariance,
+Blunders: first a robust pass (Huber 1964 M-estimator by iteratively
+reweighted least squares with the diagonal of the model) drops gross blunders,
+one at a time, beyond 5 robust sigma (a mislabelled image is off by a whole
+image spacing, tens of arcminutes, and would drag a plain least-squares fix
+far along a weak direction).  Then Baarda's data snooping (w test with the a-priori covariance,
 w_i = (S^-1 e)_i / sqrt((S^-1 Q_ee S^-1)_ii)); the contact with the largest
 |w| > 3 is dropped and the fix recomputed, until none is left or no
 redundancy remains.  A rejected contact that fits within 3 sigma when read as
@@ -66,6 +70,9 @@ CHI2_2_95 = 5.991464547107979      # chi-square, 2 degrees of freedom, P = 0.95:
 REJECT_W = 3.0                     # |w| above which the worst contact is dropped (common practice)
 MAX_OFFSET_VIF = 10.0              # largest variance inflation of the offset that is still "estimable"
 MAX_STEP_NM = 60.0
+MAX_ITERATIONS = 40
+HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
+PRESCREEN_K = 5.0                  # robust first pass: gross blunders beyond 5 robust sigma are dropped
 DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 0.5,
             "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0}
 
@@ -112,6 +119,22 @@ def _num_extra(d, key, default):
     if (isinstance(v, int) or isinstance(v, float)) and not isinstance(v, bool) and v == v and v - v == 0:
         return float(v)
     return default
+
+
+def _median(xs):
+    v = sorted(xs)
+    n = len(v)
+    return v[n // 2] if n % 2 else 0.5 * (v[n // 2 - 1] + v[n // 2])
+
+
+def _huber_weights(use):
+    """Diagonal weight matrix 1/(sigma^2 max(1, |p|/(k sigma))) (Huber 1964, IRLS form)."""
+    n = len(use)
+    W = [[0.0] * n for _ in range(n)]
+    for i in range(n):
+        s = use[i].sigma_nm
+        W[i][i] = 1.0 / (s * s * max(1.0, abs(use[i].p) / (HUBER_K * s)))
+    return W
 
 
 def _mat_vec(m, v):
@@ -212,14 +235,19 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
         N = [[sum(A[k][r] * WA[k][c] for k in range(n)) for c in range(u)] for r in range(u)]
         return A, WA, N
 
-    def solve(use, lat_e, lon_e, bias, with_bias):
-        W = invert(covariance(use))
-        if W is None:
+    def solve(use, lat_e, lon_e, bias, with_bias, huber=False):
+        """Gauss-Newton to convergence; with ``huber`` iteratively reweighted
+        (diagonal model, Huber weights) for the robust first pass."""
+        W = None if huber else invert(covariance(use))
+        if not huber and W is None:
             raise FixError("the error model's covariance is singular")
         its = 0
         Ninv = None
-        for its in range(1, 31):
+        converged = False
+        for its in range(1, MAX_ITERATIONS + 1):
             evaluate(use, lat_e, lon_e, bias)
+            if huber:
+                W = _huber_weights(use)
             A, WA, N = normal(use, W, with_bias)
             Ninv = invert(N)
             if Ninv is None:
@@ -233,10 +261,13 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
             if with_bias:
                 bias += dx[2]
             if step < 1e-4 and (not with_bias or abs(dx[2]) < 1e-4):
+                converged = True
                 break
-        else:
-            warnings.append("the fix did not converge in 30 iterations")
+        if not converged and not huber:
+            warnings.append("the fix did not converge in %d iterations" % MAX_ITERATIONS)
         evaluate(use, lat_e, lon_e, bias)
+        if huber:
+            W = _huber_weights(use)
         A, WA, N = normal(use, W, with_bias)
         Ninv = invert(N)
         if Ninv is None:
@@ -262,6 +293,20 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
     rejected_reason = {}
     lat_e, lon_e, bias = dr_lat, dr_lon, 0.0
     iterations = 0
+    covariance(use)                                  # a-priori sigma of every line
+    # robust first pass: Huber IRLS, dropping gross blunders (> PRESCREEN_K robust sigma) one at a time
+    while len(use) > 3:
+        with_bias = offset_estimable(use)
+        lat_e, lon_e, bias, _, _, _, _, _, its = solve(use, lat_e, lon_e, bias if with_bias else 0.0,
+                                                       with_bias, True)
+        iterations += its
+        ratios = [abs(ln.p) / ln.sigma_nm for ln in use]
+        scale = max(1.0, 1.4826 * _median(ratios))
+        worst = max(range(len(use)), key=lambda i: ratios[i])
+        if ratios[worst] <= PRESCREEN_K * scale:
+            break
+        bad = use.pop(worst)
+        rejected_reason[bad.c.index] = (bad, ratios[worst] / scale)
     while True:
         with_bias = offset_estimable(use)
         if not with_bias:

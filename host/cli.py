@@ -16,6 +16,7 @@ COMMANDS = (
     "host.cmd_plan",
     "host.cmd_almanac",
     "host.cmd_archive",
+    "host.cmd_fix",
 )
 
 

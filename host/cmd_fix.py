@@ -1,0 +1,93 @@
+"""``limbclock fix SESSION [--at UTC] [--json]``: the fix from a session's timed contacts.
+
+The computation is ``engine.reduce_session`` (one implementation); this module
+only reads the file and prints the result.
+"""
+import json
+
+from host.cautions import CAUTION_LINES
+
+
+def register(sub):
+    p = sub.add_parser("fix", help="compute the fix and its 95%% ellipse from a session's timed contacts")
+    p.add_argument("session", help="limbclock-session/1 JSON file ('-' for standard input)")
+    p.add_argument("--at", metavar="UTC", help="fix epoch (ISO 8601 UTC; default: the last contact)")
+    p.add_argument("--offset", choices=("auto", "on", "off"), default="auto",
+                   help="estimate a common deviation offset: auto (when estimable), on, off")
+    p.add_argument("--json", action="store_true", help="machine-readable output (limbclock-fix/1)")
+    p.set_defaults(func=run)
+
+
+def _read(path):
+    if path == "-":
+        import sys
+        return sys.stdin.read()
+    with open(path, "rb") as f:
+        return f.read()
+
+
+def compute(text, at=None, offset="auto"):
+    """The fix dict for a session text (``--at`` text or None)."""
+    import engine
+    from engine import timescale
+    at_us = timescale.parse_utc(at) if at else None
+    mode = {"auto": "auto", "on": True, "off": False}[offset]
+    return engine.reduce_session(text, at_us=at_us, deviation_offset=mode)
+
+
+def format_fix(r):
+    """Human text of a fix dict (lines)."""
+    from engine.angles import fmt_lat, fmt_lon
+    e = r["ellipse_95"]
+    out = ["Fix at %s:  %s  %s" % (r["utc"], fmt_lat(r["lat_deg"]), fmt_lon(r["lon_deg"])),
+           "  95%% ellipse: semi-axes %.1f x %.1f nmi, major axis %03.0f deg true"
+           % (e["major_nm"], e["minor_nm"], e["major_axis_deg"]),
+           "  DR then:     %s  %s   (fix is %.1f nmi from DR)"
+           % (fmt_lat(r["dr"]["lat_deg"]), fmt_lon(r["dr"]["lon_deg"]), _dist(r)),
+           "  contacts used %d of %d, unit weight s0 %.2f, %d iterations"
+           % (r["contacts_used"], len(r["contacts"]), r["sigma0"], r["iterations"])]
+    if r["deviation_offset_estimated"]:
+        out.append("  deviation offset (estimated, common to all images): %+.1f'" % r["deviation_offset_arcmin"])
+    else:
+        out.append("  deviation offset: not estimated (held at 0)")
+    out.append("")
+    out.append("  %3s %-12s %-4s %-5s %-5s %8s %8s %6s %8s %8s %5s  %s"
+               % ("#", "time UTC", "body", "limb", "image", "Ho", "Hc", "Zn", "icpt nm", "resid nm", "sigma",
+                  "status"))
+    for c in r["contacts"]:
+        t = c["utc"][11:23]
+        if c["ho_deg"] is None:
+            out.append("  %3d %-12s %-4s %-5s %-5s %8s %8s %6s %8s %8s %5s  not used: %s"
+                       % (c["index"], t, c["body"], c["limb"], c["image"] or "?", "-", "-", "-", "-", "-", "-",
+                          c["reason"]))
+            continue
+        status = "used" if c["used"] else "REJECTED: %s" % c["reason"]
+        out.append("  %3d %-12s %-4s %-5s %-5s %8s %8s %6.1f %+8.2f %+8.2f %5.2f  %s %s"
+                   % (c["index"], t, c["body"], c["limb"], c["image"], _dm(c["ho_deg"]), _dm(c["hc_deg"]),
+                      c["zn_deg"], c["intercept_nm"], c["residual_nm"], c["sigma_nm"], c["direction"], status))
+    if r["warnings"]:
+        out.append("")
+        for w in r["warnings"]:
+            out.append("warning: %s" % w)
+    out.append("")
+    out.extend(CAUTION_LINES)
+    return out
+
+
+def _dm(a_deg):
+    from engine.angles import fmt_dm
+    return fmt_dm(a_deg, "", "-", 2, 1)
+
+
+def _dist(r):
+    from engine.sphere import distance_nm
+    return distance_nm(r["lat_deg"], r["lon_deg"], r["dr"]["lat_deg"], r["dr"]["lon_deg"])
+
+
+def run(args):
+    r = compute(_read(args.session), args.at, args.offset)
+    if args.json:
+        print(json.dumps(r, indent=1))
+    else:
+        print("\n".join(format_fix(r)))
+    return 0
