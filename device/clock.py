@@ -177,7 +177,7 @@ class Clock:
         self.anchor_tick = tick
         self.anchor_utc = utc_us
         self.manual_tick = None
-        if len(self.fit_t) >= 3:
+        if len(self.fit_t) >= MIN_PAIRS:
             self._fit()
 
     def _fit(self):

@@ -120,6 +120,7 @@ class VirtualTimer:
         self.ticks_period = ticks_period
         self.press_us = press_us
         self.power_cuts = 0
+        self._shown = None
         self.off_until = None
         osc = Oscillator(start_us, drift_ppm, wander_ppm, aging_ppm_per_day=aging_ppm_per_day,
                          start_tick=random.Random(seed).randrange(ticks_period), period=ticks_period)
@@ -205,7 +206,11 @@ class VirtualTimer:
             with open(self.display_file, "w") as f:
                 f.write("\n".join(lines) + "\n")
         if self.display_stderr:
-            sys.stderr.write("[timer] %s\n" % " | ".join(lines))
+            key = (lines[0].split()[0], lines[2], lines[3])     # not every tick of the clock line
+            if key != self._shown:
+                self._shown = key
+                sys.stderr.write("[timer] %s\n" % " | ".join(lines))
+                sys.stderr.flush()
 
     # -- links ------------------------------------------------------------------
     def loopback(self, faults=None, seed=7, step_us=5000):

@@ -17,6 +17,7 @@ COMMANDS = (
     "host.cmd_almanac",
     "host.cmd_archive",
     "host.cmd_fix",
+    "host.cmd_sim",
 )
 
 

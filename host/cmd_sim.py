@@ -1,0 +1,94 @@
+"""``limbclock sim``: a virtual timer on a pseudo-terminal, pressing the button at a session's contacts."""
+import json
+import signal
+import sys
+import threading
+
+from host.cautions import CAUTION_LINES
+from host.errors import UserError
+
+
+def register(sub):
+    p = sub.add_parser("sim", help="run a virtual timer on a pseudo-terminal (prints the port path first)")
+    p.add_argument("--session", required=True, help="session file whose contacts[].utc/body/limb are pressed")
+    p.add_argument("--state", metavar="DIR", help="keep the timer's storage (log, files) in DIR across runs")
+    p.add_argument("--link-faults", type=float, default=0.0, metavar="RATE",
+                   help="fraction of link bytes dropped or corrupted in both directions (0..0.5)")
+    p.add_argument("--speed", type=float, default=0.0, metavar="X",
+                   help="simulated seconds per real second up to the last contact (0: as fast as possible)")
+    p.add_argument("--power-cut-at", metavar="UTC", help="cut the power at this simulated instant (restart 3 s later)")
+    p.add_argument("--power-cut-after-bytes", type=int, metavar="N",
+                   help="cut the power after N bytes written to storage")
+    p.add_argument("--gps-outage", action="append", default=[], metavar="FROM,TO",
+                   help="no PPS / void fixes between two UTC instants (repeatable)")
+    p.add_argument("--drift-ppm", type=float, default=1.3, help="oscillator drift in ppm (default 1.3)")
+    p.add_argument("--oscillator", choices=("tcxo", "xo"), default="tcxo", help="holdover error model")
+    p.add_argument("--display-file", metavar="FILE", help="write the timer's display lines to FILE")
+    p.add_argument("--seed", type=int, default=1, help="seed of the link faults")
+    p.add_argument("--json", action="store_true", help="after the port line, report in JSON when stopped")
+    p.set_defaults(func=run)
+
+
+def _build(args):
+    from device import clock
+    from device.sim import VirtualTimer
+    from engine.timescale import parse_utc
+    if not 0.0 <= args.link_faults <= 0.5:
+        raise UserError("--link-faults must be between 0 and 0.5, got %g" % args.link_faults)
+    outages = []
+    for text in args.gps_outage:
+        parts = text.split(",")
+        if len(parts) != 2:
+            raise UserError("--gps-outage needs FROM,TO (two UTC instants), got %r" % text)
+        a, b = parse_utc(parts[0]), parse_utc(parts[1])
+        if b <= a:
+            raise UserError("--gps-outage %r ends before it starts" % text)
+        outages.append((a, b))
+    try:
+        return VirtualTimer(session=args.session, state_dir=args.state, link_faults=args.link_faults,
+                            speed=args.speed, seed=args.seed, drift_ppm=args.drift_ppm,
+                            profile=clock.XO if args.oscillator == "xo" else clock.TCXO, outages=outages,
+                            power_cut_at_us=parse_utc(args.power_cut_at) if args.power_cut_at else None,
+                            power_cut_after_bytes=args.power_cut_after_bytes,
+                            display_file=args.display_file, display_stderr=not args.display_file)
+    except FileNotFoundError:
+        raise UserError("session file %s not found" % args.session)
+
+
+def run(args):
+    vt = _build(args)
+    port = vt.start()
+    sys.stdout.write(port + "\n")
+    sys.stdout.flush()
+    stop = threading.Event()
+
+    def _stop(signum, frame):
+        stop.set()
+    old = {s: signal.signal(s, _stop) for s in (signal.SIGTERM, signal.SIGINT)}
+    if not args.json:
+        print("virtual timer %s serving on %s; %d contacts to press; stop with Ctrl-C"
+              % (vt.device_id, port, len(vt.contacts)))
+        for line in CAUTION_LINES:
+            print(line)
+        sys.stdout.flush()
+    try:
+        while not stop.is_set() and vt.error is None:
+            stop.wait(0.2)
+    finally:
+        vt.stop()
+        for s, h in old.items():
+            signal.signal(s, h)
+    if vt.error is not None:
+        raise vt.error
+    fw = vt.fw
+    summary = {"port": port, "device_id": vt.device_id, "contacts_scheduled": len(vt.contacts),
+               "last_seq": fw.log.last_seq if fw else None,
+               "confirmed_seq": fw.log.confirmed_seq if fw else None,
+               "power_cuts": vt.power_cuts, "link_bytes_dropped": vt.faults_in.dropped + vt.faults_out.dropped,
+               "link_bytes_corrupted": vt.faults_in.corrupted + vt.faults_out.corrupted}
+    if args.json:
+        print(json.dumps(summary))
+    else:
+        print("virtual timer stopped: last record #%s, confirmed #%s, %d power cut(s)"
+              % (summary["last_seq"], summary["confirmed_seq"], vt.power_cuts))
+    return 0
