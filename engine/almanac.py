@@ -236,7 +236,7 @@ def parse(data, name="almanac file"):
     if data[:4] != MAGIC:
         raise AlmanacError("%s: not a limbclock almanac file (bad magic %r)" % (name, bytes(data[:4])))
     (crc,) = struct.unpack("<I", data[n - 4:n])
-    if binascii.crc32(data[:n - 4]) & 0xFFFFFFFF != crc:
+    if binascii.crc32(memoryview(data)[:n - 4]) & 0xFFFFFFFF != crc:
         raise AlmanacError("%s: checksum mismatch (corrupt or truncated file)" % name)
     _, version, nbodies, year, start_day = struct.unpack(_HEADER, data[:_HEADER_SIZE])
     if version != VERSION:
