@@ -355,7 +355,7 @@ def fit_plate_angles(deviations_deg, coefs, sigmas_arcmin=None):
         s0 = max(s0, 1.0)
     else:
         s0 = rms * math.sqrt(len(res) / dof) if dof > 0 else 0.0
-    sig = [math.sqrt(max(inv[a][a], 0.0)) * s0 * 60.0 for a in range(m)]
+    sig = [math.sqrt(max(inv[a][a], 0.0)) * s0 for a in range(m)]   # arcmin: the weights are per arcmin^2
     return x, sig, rms
 
 

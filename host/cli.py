@@ -14,6 +14,7 @@ COMMANDS = (
     "host.cmd_doctor",
     "host.cmd_ladder",
     "host.cmd_plan",
+    "host.cmd_calibrate",
     "host.cmd_almanac",
     "host.cmd_archive",
     "host.cmd_fix",
