@@ -29,12 +29,17 @@ class FrameError(ValueError):
 
 
 def cobs_encode(data):
-    """COBS-encode ``data`` (bytes); the result contains no 0x00."""
+    """COBS-encode ``data`` (bytes); the result contains no 0x00.
+
+    As in the paper, a run that ends the data exactly on a full 254-byte block
+    gets no extra trailing code byte."""
     out = bytearray()
     code_at = 0
     out.append(0)
     code = 1
+    full = False
     for b in data:
+        full = False
         if b == 0:
             out[code_at] = code
             code_at = len(out)
@@ -48,7 +53,11 @@ def cobs_encode(data):
                 code_at = len(out)
                 out.append(0)
                 code = 1
-    out[code_at] = code
+                full = True
+    if full:
+        out.pop()
+    else:
+        out[code_at] = code
     return bytes(out)
 
 

@@ -14,7 +14,7 @@ sentence names; the clock pairs it with a PPS edge.
 RMC carries a two-digit year, read as 20yy.  A receiver that lost track of the
 GPS week rollover (IS-GPS-200: the 10-bit week number wraps every 1024 weeks)
 reports a date 1024 weeks early; a date before ``EARLIEST_DAY`` is moved on by
-1024 weeks and counted in ``rollover``.  A second of 60 (leap second) cannot be
+1024 weeks and counted in ``rollover`` (still earlier: malformed).  A second of 60 (leap second) cannot be
 named in POSIX time and is skipped (counted in ``leap``).
 """
 from engine.timescale import days_from_civil, civil_from_days
@@ -181,6 +181,8 @@ class Parser:
             self.leap += 1
             return None
         if day < EARLIEST_DAY:
+            if day + ROLLOVER_DAYS < EARLIEST_DAY:
+                raise ValueError("date before this firmware")
             day += ROLLOVER_DAYS
             self.rollover += 1
         self.good += 1
