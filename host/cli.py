@@ -19,6 +19,8 @@ COMMANDS = (
     "host.cmd_archive",
     "host.cmd_fix",
     "host.cmd_sim",
+    "host.cmd_sync",
+    "host.cmd_demo",
 )
 
 

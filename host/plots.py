@@ -102,7 +102,9 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
     e = fix.get("ellipse_95") or {}
     contacts = fix.get("contacts") or []
     reach = [4.0, 1.6 * (e.get("major_nm") or 0.0)]
-    reach += [abs(c["residual_nm"]) + 1.5 for c in contacts if c.get("residual_nm") is not None]
+    # the view holds the used lines; a rejected line far off (a blunder) is left outside it
+    reach += [abs(c["residual_nm"]) + 1.5 for c in contacts
+              if c.get("residual_nm") is not None and c.get("used", True)]
     dr = fix.get("dr")
     if dr:
         reach.append(1.3 * sphere.distance_nm(lat0, lon0, dr["lat_deg"], dr["lon_deg"]) + 1.0)

@@ -1,0 +1,64 @@
+"""``limbclock sync`` (pull the timer's log into the archive) and ``limbclock push`` (send a file).
+
+    limbclock sync --port /dev/ttyACM0 [--db FILE] [--json]
+    limbclock push --port /dev/ttyACM0 --instrument stack.json
+"""
+import json
+
+from host import archive
+from host.errors import UserError
+
+
+def register(sub):
+    p = sub.add_parser("sync", help="pull the timer's log into the archive (resumable, no duplicates)")
+    p.add_argument("--port", required=True, help="serial port of the timer (or the virtual timer's pty)")
+    p.add_argument("--db", default=None, help="archive file (default: %s)" % archive.default_path())
+    p.add_argument("--progress", dest="progress", action="store_true", default=None,
+                   help="always show the progress bar on stderr (default: on a terminal, long transfers)")
+    p.add_argument("--no-progress", dest="progress", action="store_false", help="never show the progress bar")
+    p.add_argument("--timeout", type=float, default=1.0, metavar="S", help="seconds to wait for each answer")
+    p.add_argument("--json", action="store_true", help='machine-readable: {"new", "duplicates", "device"}')
+    p.set_defaults(func=run_sync)
+
+    p = sub.add_parser("push", help="send an instrument, almanac or track file to the timer (verified)")
+    p.add_argument("--port", required=True, help="serial port of the timer")
+    g = p.add_mutually_exclusive_group(required=True)
+    g.add_argument("--instrument", metavar="FILE", help="limbclock-instrument/1 file")
+    g.add_argument("--almanac", metavar="FILE", help="almanac file (.lca)")
+    g.add_argument("--track", metavar="FILE", help="DR track (JSON object, or a session file's track)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=run_push)
+
+
+def run_sync(args):
+    from host import sync
+    db = args.db or archive.default_path()
+    if args.timeout <= 0:
+        raise UserError("--timeout must be positive")
+    res = sync.sync_port(args.port, db, progress=args.progress, timeout=args.timeout)
+    if args.json:
+        print(json.dumps({"new": res["new"], "duplicates": res["duplicates"], "device": res["device"],
+                          "last_seq": res["last_seq"], "db": db}))
+        return 0
+    print("timer %s: %d new record(s), %d duplicate(s); archive holds up to seq %d (%s)"
+          % (res["device"], res["new"], res["duplicates"], res["last_seq"], db))
+    return 0
+
+
+def run_push(args):
+    from host import sync
+    from host.timer_client import TimerClient
+    slot, path = [(s, getattr(args, s)) for s in ("instrument", "almanac", "track") if getattr(args, s)][0]
+    try:
+        with open(path, "rb") as f:
+            data = f.read()
+    except OSError as exc:
+        raise UserError("--%s %s: %s" % (slot, path, exc.strerror or exc))
+    with TimerClient(args.port) as client:
+        res = sync.push(client, slot, data)
+    if args.json:
+        print(json.dumps(res))
+        return 0
+    print("sent %s (%d bytes) to timer %s; read back and verified, CRC-32 %s"
+          % (slot, res["size"], res["device"], res["crc32"]))
+    return 0

@@ -1,0 +1,204 @@
+"""Sync: pull a timer's log into the archive, resumably and idempotently; push files to it.
+
+The order of operations is what makes it safe::
+
+    handshake (protocol version)          -> device id
+    from = archive's last committed seq + 1
+    loop: read a batch from the timer     (CRC-checked end to end by the client)
+          store it in ONE SQLite transaction, COMMIT (synchronous=FULL: on disk)
+          THEN acknowledge the batch's last seq to the timer
+    finally: acknowledge what the archive holds but the timer was never told
+
+A kill, a pulled cable or a power cut at any point leaves the archive with
+whole batches only, and the timer still holding (unacknowledged) everything
+the archive may lack; the next sync starts from the archive's last committed
+seq, so nothing is lost and nothing is stored twice.  A record the archive
+already holds is counted as a duplicate; one that differs is an error.
+
+Serial transport, framing and retries are ``host.timer_client``'s; records
+are ``device.log.Record`` objects, turned into the archive's plain dicts by
+``record_dict``.
+"""
+import sys
+import time
+
+from host import archive
+
+PROGRESS_MIN_RECORDS = 200    # show a progress bar from this many records to fetch
+
+
+class SyncError(ValueError):
+    """The timer's log and the archive disagree in a way sync must not paper over."""
+
+
+def record_dict(r):
+    """A ``device.log.Record`` (or a dict) -> the archive's record dict."""
+    if isinstance(r, dict):
+        return r
+    from device import log as dlog
+    kind = dlog.KIND_NAMES.get(r.kind, "kind-%d" % r.kind)
+    d = {"seq": r.seq, "kind": kind, "utc_us": r.utc_us, "session": r.session,
+         "quality": _name(dlog.TIME_STATE_NAMES, r.time_state, "state"), "uncertainty_us": r.uncertainty_us}
+    if kind == "contact":
+        d["body"] = _name(dlog.BODY_NAMES, r.body, "body")
+        d["limb"] = _name(dlog.LIMB_NAMES, r.limb, "limb")
+        if r.image >= 0:
+            d["image_index"] = r.image
+    elif kind == "void":
+        d["voided_seq"] = r.ref_seq
+    else:
+        d["body"] = _name(dlog.BODY_NAMES, r.body, "body")
+        d["limb"] = _name(dlog.LIMB_NAMES, r.limb, "limb")
+        if r.ref_seq:
+            d["ref_seq"] = r.ref_seq
+    return d
+
+
+def _name(names, k, what):
+    return names[k] if 0 <= k < len(names) else "%s-%d" % (what, k)
+
+
+class TextProgress(object):
+    """A one-line text progress bar on a stream (stderr), redrawn with a carriage return."""
+    __slots__ = ("stream", "total", "label", "width", "shown", "t0")
+
+    def __init__(self, total, label, stream=None, width=30):
+        self.stream = stream if stream is not None else sys.stderr
+        self.total = max(1, total)
+        self.label = label
+        self.width = width
+        self.shown = False
+        self.t0 = time.monotonic()
+
+    def update(self, done):
+        frac = min(1.0, done / float(self.total))
+        n = int(round(frac * self.width))
+        rate = done / max(1e-6, time.monotonic() - self.t0)
+        self.stream.write("\r%s [%s%s] %d/%d records, %.0f/s" % (self.label, "#" * n, "." * (self.width - n), done,
+                                                                 self.total, rate))
+        self.stream.flush()
+        self.shown = True
+
+    def close(self):
+        if self.shown:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def sync(client, conn, progress=None, batch=None, stream=None):
+    """Pull every record the archive lacks from the timer behind ``client`` (a
+    ``TimerClient``) into ``conn``; return ``{"new", "duplicates", "device", "last_seq",
+    "batches"}``.  ``progress``: True / False / None (auto: stderr is a terminal)."""
+    started = archive.now_us()
+    info = client.handshake()
+    device_id = info.get("device_id")
+    with archive.transaction(conn):
+        archive.ensure_device(conn, device_id, info.get("protocol"), info.get("firmware"))
+    have = archive.last_seq(conn, device_id)
+    s = have + 1
+    new = dup = batches = 0
+    bar = None
+    kw = {} if batch is None else {"batch": batch}
+    base = nxt = None
+    try:
+        while True:
+            base, nxt, recs = client.read_log_batch(s, **kw)
+            if have >= nxt:
+                raise SyncError("timer %s numbers its next record %d but the archive already holds up to %d: "
+                                "was the timer reset? (its log restarted; refusing to mix the two)"
+                                % (device_id, nxt, have))
+            if bar is None:
+                todo = max(0, nxt - max(s, base))
+                show = progress if progress is not None else _isatty(stream or sys.stderr)
+                if show and todo >= PROGRESS_MIN_RECORDS:
+                    bar = TextProgress(todo, "sync %s" % device_id, stream)
+                    done0 = max(s, base)
+            if not recs:
+                break
+            with archive.transaction(conn):
+                n, d = archive.store_records(conn, device_id, [record_dict(r) for r in recs])
+            new += n
+            dup += d
+            batches += 1
+            have = archive.last_seq(conn, device_id)
+            client.ack(recs[-1].seq)          # only after the COMMIT above
+            s = recs[-1].seq + 1
+            if bar is not None:
+                bar.update(s - done0)
+            if s >= nxt:
+                break
+        # records the archive holds but the timer never heard were confirmed (killed between
+        # commit and ack): confirm them now so the timer can reclaim the space
+        if base is not None and have >= base and have < nxt:
+            client.ack(have)
+    finally:
+        if bar is not None:
+            bar.close()
+    with archive.transaction(conn):
+        archive.record_sync(conn, device_id, started, new, dup)
+    return {"new": new, "duplicates": dup, "device": device_id, "last_seq": have, "batches": batches}
+
+
+def _isatty(stream):
+    try:
+        return stream.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
+def sync_port(port, db_path, progress=None, timeout=1.0, retries=6):
+    """Open the timer on ``port`` and the archive at ``db_path``, sync, close both."""
+    from host.timer_client import TimerClient
+    conn = archive.connect(db_path)
+    try:
+        with TimerClient(port, timeout=timeout, retries=retries) as client:
+            return sync(client, conn, progress)
+    finally:
+        conn.close()
+
+
+# --------------------------------------------------------------------------- push
+
+def check_file(slot, data):
+    """Validate a file before it goes to the timer; return the bytes to send.
+
+    instrument: ``limbclock-instrument/1``; almanac: an ``.lca`` almanac file;
+    track: a session-file track object (``utc, lat_deg, lon_deg, course_deg, speed_kn``)
+    or a session file, whose ``track`` is sent."""
+    if slot == "instrument":
+        from engine import instrument
+        instrument.parse_instrument(data)
+        return data
+    if slot == "almanac":
+        from engine import almanac
+        almanac.parse(data, "almanac file")
+        return data
+    if slot == "track":
+        import json
+        try:
+            doc = json.loads(data.decode("utf-8"))
+        except (UnicodeDecodeError, ValueError) as exc:
+            raise SyncError("track file: not JSON (%s)" % exc)
+        if isinstance(doc, dict) and isinstance(doc.get("track"), dict):
+            doc = doc["track"]
+        from engine.session import session_from_dict
+        session_from_dict({"format": "limbclock-session/1", "observer": {"eye_height_m": 0.0},
+                           "instrument": {"images": [{"id": "x", "deviation_deg": 10.0}]}, "track": doc,
+                           "contacts": [{"utc": doc.get("utc"), "body": "sun", "limb": "lower"}]})
+        return json.dumps(doc, sort_keys=True).encode("utf-8")
+    raise SyncError("push: unknown slot %r (instrument, almanac or track)" % slot)
+
+
+def push(client, slot, data, progress=None):
+    """Send a checked file to the timer and verify it there (size and CRC-32 read back)."""
+    import binascii
+    data = check_file(slot, data)
+    info = client.handshake()
+    result = client.push_file(slot, data, progress)
+    back = client.file_info(slot)
+    crc = binascii.crc32(data) & 0xFFFFFFFF
+    if back.get("size") != len(data) or back.get("crc32") != crc:
+        raise SyncError("the timer holds %s as %s bytes, CRC %s; sent %d bytes, CRC %08x"
+                        % (slot, back.get("size"), back.get("crc32"), len(data), crc))
+    return {"device": info.get("device_id"), "slot": slot, "size": len(data), "crc32": "%08x" % crc,
+            "verified": True, "timer": result}
