@@ -1,0 +1,120 @@
+"""Properties of the fix on the reference sessions: order independence, blunder rejection with the
+mislabel diagnosis, convergence from far DRs; the ellipse's statistics against published tables."""
+import json
+import math
+import os
+
+import pytest
+from hypothesis import given, settings, strategies as st, HealthCheck
+
+import engine
+from engine import almanac, fix
+from engine.session import parse_session
+from engine.sphere import distance_nm, move_nm
+
+SESSIONS = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "vectors", "sessions")
+ALM = almanac.load()
+GOOD = ("station_sun", "sun_moon", "both_sides", "morning_run")
+
+
+def load(name):
+    with open(os.path.join(SESSIONS, name + ".json")) as f:
+        return json.load(f)
+
+
+DOCS = {n: load(n) for n in GOOD}
+SLOW = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+
+@SLOW
+@given(st.sampled_from(GOOD[:3]), st.randoms(use_true_random=False))
+def test_order_does_not_matter(name, rnd):
+    d = json.loads(json.dumps(DOCS[name]))
+    ref = engine.reduce_session(json.dumps(d), ALM)
+    rnd.shuffle(d["contacts"])
+    r = engine.reduce_session(json.dumps(d), ALM)
+    assert distance_nm(r["lat_deg"], r["lon_deg"], ref["lat_deg"], ref["lon_deg"]) < 1e-6
+    assert abs(r["ellipse_95"]["major_nm"] - ref["ellipse_95"]["major_nm"]) < 1e-6
+    assert r["utc"] == ref["utc"]
+
+
+@SLOW
+@given(st.sampled_from(GOOD), st.integers(0, 10**6), st.booleans())
+def test_one_image_spacing_blunder_is_flagged(name, pick, up):
+    d = json.loads(json.dumps(DOCS[name]))
+    ids = [im["id"] for im in d["instrument"]["images"]]
+    k = pick % len(d["contacts"])
+    c = d["contacts"][k]
+    j = ids.index(c["image"]) + (1 if up else -1)
+    if not 0 <= j < len(ids):
+        j = ids.index(c["image"]) - (1 if up else -1)
+    true_id, c["image"] = c["image"], ids[j]
+    r = engine.reduce_session(json.dumps(d), ALM)
+    assert k in r["rejected"]
+    assert r["rejected"] == [k]
+    reason = r["contacts"][k]["reason"]
+    assert "probably mislabelled" in reason and "%s->%s" % (ids[j], true_id) in reason
+    assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
+
+
+@SLOW
+@given(st.sampled_from(GOOD), st.floats(0, 360), st.floats(20, 100))
+def test_converges_from_far_dr(name, bearing, dist):
+    d = json.loads(json.dumps(DOCS[name]))
+    tr = d["truth"]["track"]
+    lat, lon = move_nm(tr["lat_deg"], tr["lon_deg"], dist * math.cos(math.radians(bearing)),
+                       dist * math.sin(math.radians(bearing)))
+    d["track"]["lat_deg"], d["track"]["lon_deg"] = lat, lon
+    r = engine.reduce_session(json.dumps(d), ALM)
+    assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
+    assert r["rejected"] == []
+
+
+@pytest.mark.parametrize("v, f", [(2, 19.00), (5, 5.79), (10, 4.10), (20, 3.49), (60, 3.15)])
+def test_f_quantile_against_table(v, f):
+    # F(2, v) upper 5 % points, e.g. NIST/SEMATECH e-Handbook of Statistical Methods, table 1.3.6.7.2
+    # [from memory]; the closed form for 2 numerator degrees of freedom is exact
+    assert abs(fix.f2_quantile(v) - f) < 0.006
+
+
+def test_ellipse_k_and_axes():
+    # k = sqrt(-2 ln 0.05) = 2.448 for 95 % (REFERENCES 2); axes of a known covariance
+    assert abs(math.sqrt(fix.ellipse_k2(0.5, 10)) - 2.448) < 0.0005
+    assert fix.ellipse_k2(2.0, 10) == pytest.approx(4.0 * 2.0 * fix.f2_quantile(10))
+    major, minor, axis = fix.ellipse(4.0, 0.0, 1.0, 1.0)
+    assert (major, minor, axis) == (2.0, 1.0, 0.0)
+    major, minor, axis = fix.ellipse(1.0, 0.0, 4.0, 1.0)
+    assert (major, minor, axis) == (2.0, 1.0, 90.0)
+    major, minor, axis = fix.ellipse(2.5, 1.5, 2.5, 1.0)        # eigenvalues 4 and 1 along 045/135
+    assert abs(major - 2.0) < 1e-12 and abs(minor - 1.0) < 1e-12 and abs(axis - 45.0) < 1e-9
+
+
+def test_too_few_contacts_and_unidentified():
+    d = json.loads(json.dumps(DOCS["station_sun"]))
+    for c in d["contacts"][1:]:
+        c["image"] = None
+    with pytest.raises(fix.FixError, match="at least two"):
+        fix.solve_fix(parse_session(json.dumps(d)), ALM)
+    d = json.loads(json.dumps(DOCS["station_sun"]))
+    d["contacts"][3]["image"] = None
+    d["contacts"][4]["void"] = True
+    s = parse_session(json.dumps(d))
+    r = fix.solve_fix(s, ALM)
+    assert r["contacts"][3]["reason"] == "image not identified" and r["contacts"][4]["reason"] == "void"
+    assert 3 in r["rejected"] and 4 in r["rejected"] and r["images"][3] is None
+
+
+def test_ellipse_grows_with_noisy_contacts():
+    # 3' of extra scatter in altitude: s0 rises above 1 and the ellipse follows it
+    import random
+    d = json.loads(json.dumps(DOCS["sun_moon"]))
+    clean = engine.reduce_session(json.dumps(d), ALM)
+    rnd = random.Random(5)
+    from engine.timescale import parse_utc, format_utc
+    for c in d["contacts"]:
+        c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 12.0) * 1e6))   # 12 s ~ 2-3'
+    noisy = engine.reduce_session(json.dumps(d), ALM)
+    assert noisy["sigma0"] > 1.0
+    assert noisy["ellipse_95"]["major_nm"] > clean["ellipse_95"]["major_nm"]
+    err = distance_nm(noisy["lat_deg"], noisy["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"])
+    assert err < 2.0 * noisy["ellipse_95"]["major_nm"]
