@@ -123,3 +123,28 @@ def test_cold_start_finds_the_ship():
     assert distance_nm(best["lat_deg"], best["lon_deg"], truth[0], truth[1]) < 2.0
     assert best["images"] == [c["image"] for c in pick] and best["rms_arcmin"] < 0.5
     assert all(c["rms_arcmin"] > 5.0 for c in cands[1:])
+
+
+def test_identify_and_calibrate_under_micropython():
+    from engine import calibrate
+    from mpy import run_micropython
+    scn = DOC["scenarios"][0]
+    pick = scn["contacts"][10:15]
+    sess = session_text(scn, pick, 15.0, 10.0)
+    cal = json.loads(session_text(scn, scn["contacts"][:24], labelled=range(24)))
+    cal["track"]["known"] = True
+    cal = json.dumps(cal)
+    code = ("import json\nfrom engine import almanac, identify, calibrate\nfrom engine.session import parse_session\n"
+            "alm = almanac.load()\n"
+            "r = identify.identify(parse_session(%r), alm)\n"
+            "print(json.dumps([c['image'] for c in r['contacts']]))\n"
+            "c = calibrate.calibrate_session(%r, alm)\n"
+            "print(json.dumps([[i['id'], i['deviation_deg']] for i in c['images']] + [c['reaction_delay_s']]))\n"
+            % (sess, cal))
+    out = run_micropython(code).strip().splitlines()
+    assert json.loads(out[-2]) == [c["image"] for c in pick]
+    got = json.loads(out[-1])
+    ref = calibrate.calibrate_session(cal, ALM)
+    for (iid, dev), im in zip(got[:-1], ref["images"]):
+        assert iid == im["id"] and abs(dev - im["deviation_deg"]) * 60 < 0.01
+    assert abs(got[-1] - ref["reaction_delay_s"]) < 0.01
