@@ -10,7 +10,7 @@ from mpy import run_micropython
 
 SCRIPT = r'''
 import json
-from device import nmea, clock, log, frame, hal, protocol
+from device import nmea, clock, log, frame, hal, protocol, board
 from device.firmware import Firmware
 from engine.timescale import parse_utc
 
@@ -67,6 +67,7 @@ class HW(hal.Hardware):
 fw = Firmware(HW(), device_id="LC-MP")
 reply = frame.Decoder().feed(fw.proto.feed(frame.encode(protocol.HELLO, 1, b"\x01")))[0]
 out["hello"] = [reply[0], json.loads(reply[2])["device_id"]]
+out["board"] = board.machine is None
 print(json.dumps(out))
 '''
 
@@ -89,4 +90,4 @@ def test_core_under_micropython_matches_cpython(tmp_path):
     assert mp["nmea"] == [90, 90]                                     # the void RMC has a bad checksum here
     assert mp["recovered"] == 17 and mp["confirmed"] == 2
     assert [r[0] for r in mp["records"]] == [3, 4]
-    assert mp["frame"][1] and mp["hello"] == [0x81, "LC-MP"]
+    assert mp["frame"][1] and mp["hello"] == [0x81, "LC-MP"] and mp["board"]
