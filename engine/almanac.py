@@ -101,27 +101,32 @@ class Position(object):
 
 
 def _signed_bits(buf, pos, w):
-    """The two's-complement integer of ``w`` bits at bit ``pos`` of ``buf`` (MSB first).
-    Intermediate values never exceed ``w`` bits (small ints on a board)."""
-    v = 0
-    n = w
+    """The two's-complement integer of ``w`` (>= 1) bits at bit ``pos`` of ``buf`` (MSB first).
+    Intermediate values stay below 2**24 (small ints on a board).  Reads up to two
+    bytes past the field: the file's 4-byte CRC always follows the bit data."""
     i = pos >> 3
     s = pos & 7
-    while n > 0:
-        take = 8 - s
-        if take > n:
-            take = n
-        v = (v << take) | ((buf[i] >> (8 - s - take)) & ((1 << take) - 1))
-        n -= take
-        i += 1
-        s = 0
+    if s + w <= 24:
+        v = ((buf[i] << 16 | buf[i + 1] << 8 | buf[i + 2]) >> (24 - s - w)) & ((1 << w) - 1)
+    else:
+        v = 0
+        n = w
+        while n > 0:
+            take = 8 - s
+            if take > n:
+                take = n
+            v = (v << take) | ((buf[i] >> (8 - s - take)) & ((1 << take) - 1))
+            n -= take
+            i += 1
+            s = 0
     if v >= 1 << (w - 1):
         v -= 1 << w
     return v
 
 
-def _clenshaw(c, x):
-    """(f, df/dx) of sum c_k T_k(x) by Clenshaw's recurrence and its derivative.
+def _clenshaw(c, x, with_rate):
+    """(f, df/dx) of sum c_k T_k(x) by Clenshaw's recurrence and its derivative
+    (df/dx is 0 unless ``with_rate``):
 
     b_k = c_k + 2x b_{k+1} - b_{k+2}; f = c_0 + x b_1 - b_2
     d_k = 2 b_{k+1} + 2x d_{k+1} - d_{k+2}; f' = b_1 + x d_1 - d_2
@@ -129,15 +134,16 @@ def _clenshaw(c, x):
     x2 = x + x
     b1 = b2 = d1 = d2 = _float(0.0)
     k = len(c) - 1
+    if with_rate:
+        while k >= 1:
+            d1, d2 = (b1 + b1) + x2 * d1 - d2, d1
+            b1, b2 = c[k] + x2 * b1 - b2, b1
+            k -= 1
+        return c[0] + x * b1 - b2, b1 + x * d1 - d2
     while k >= 1:
-        d0 = (b1 + b1) + x2 * d1 - d2
-        b0 = c[k] + x2 * b1 - b2
-        b2 = b1
-        b1 = b0
-        d2 = d1
-        d1 = d0
+        b1, b2 = c[k] + x2 * b1 - b2, b1
         k -= 1
-    return c[0] + x * b1 - b2, b1 + x * d1 - d2
+    return c[0] + x * b1 - b2, d1
 
 
 class _Quantity(object):
@@ -188,26 +194,31 @@ class AlmanacYear(object):
         raise AlmanacError("body %r is not in the almanac file for %d" % (body, self.year))
 
     def _coefficients(self, s, index):
+        """The three coefficient lists of segment ``index`` of series ``s``, in the quantities'
+        units (integer x power-of-two quantum, so the scaling is exact)."""
         if s.cached_index == index:
             return s.cached
         buf = self.buf
         pos = s.bit0 + index * s.seg_bits
+        read = _signed_bits
         out = []
         for q in s.quantities:
+            quantum = q.quantum
+            zero = quantum * 0
             c = []
             for w in q.widths:
                 if w:
-                    c.append(_float(_signed_bits(buf, pos, w)))
+                    c.append(read(buf, pos, w) * quantum)
                     pos += w
                 else:
-                    c.append(_float(0.0))
+                    c.append(zero)
             out.append(c)
         s.cached = out
         s.cached_index = index
         return out
 
     def evaluate(self, body, tt_us):
-        """([ra_cio_deg, dec_deg, sd_or_hp_arcmin], [their rates per second]) at TT ``tt_us``."""
+        """([ra_cio_deg, dec_deg, sd_or_hp_arcmin], [rates per second of the first two]) at TT ``tt_us``."""
         s = self._series(body)
         off = tt_us - self.start_tt_us
         index = off // s.seg_us
@@ -218,13 +229,10 @@ class AlmanacYear(object):
         dt_us = off - index * s.seg_us
         x = _float(2 * dt_us - s.seg_us) / _float(s.seg_us)
         dxdt = _float(2 * US_PER_S) / _float(s.seg_us)      # dx per second
-        values = []
-        rates = []
-        for q, c in zip(s.quantities, coeffs):
-            f, df = _clenshaw(c, x)
-            values.append(f * q.quantum)
-            rates.append(df * q.quantum * dxdt)
-        return values, rates
+        ra, ra_rate = _clenshaw(coeffs[0], x, True)
+        dec, dec_rate = _clenshaw(coeffs[1], x, True)
+        third, _ = _clenshaw(coeffs[2], x, False)
+        return [ra, dec, third], [ra_rate * dxdt, dec_rate * dxdt]
 
 
 def parse(data, name="almanac file"):
@@ -290,10 +298,16 @@ class Almanac(object):
     """The almanac over a directory of ``YYYY.lca`` files, read lazily one year at a time
     (the last two years used are kept)."""
 
-    def __init__(self, path, years):
+    def __init__(self, path, years, keep_years=2):
         self.path = path
         self.years = years          # sorted list of available years
+        self.keep_years = keep_years
         self._cache = []            # [(year, AlmanacYear)], most recent last
+        self._first_us = timescale.days_from_civil(years[0], 1, 1) * US_PER_DAY
+        self._end_us = timescale.days_from_civil(years[-1] + 1, 1, 1) * US_PER_DAY
+        self._day = None            # UTC day of the last instant: its year file and TT - UTC
+        self._day_year = None
+        self._day_tt_us = 0
 
     def __repr__(self):
         return "Almanac(%r, %d-%d)" % (self.path, self.first_year, self.last_year)
@@ -308,8 +322,7 @@ class Almanac(object):
 
     def span_us(self):
         """(first instant covered, first instant no longer covered), UTC."""
-        return (timescale.days_from_civil(self.first_year, 1, 1) * US_PER_DAY,
-                timescale.days_from_civil(self.last_year + 1, 1, 1) * US_PER_DAY)
+        return self._first_us, self._end_us
 
     def year(self, y):
         """The parsed ``AlmanacYear`` for UTC year ``y`` (read and checked on first use)."""
@@ -325,7 +338,7 @@ class Almanac(object):
         if a.year != y:
             raise AlmanacError("%s: holds year %d" % (name, a.year))
         self._cache.append((y, a))
-        if len(self._cache) > 2:
+        if len(self._cache) > self.keep_years:
             self._cache.pop(0)
         return a
 
@@ -338,12 +351,15 @@ class Almanac(object):
             raise AlmanacError("body must be 'sun' or 'moon', got %r" % (body,))
         if not isinstance(t_us, int):
             raise AlmanacError("instant must be an int of microseconds, got %r" % (t_us,))
-        first, end = self.span_us()
-        if not first <= t_us < end:
+        if not self._first_us <= t_us < self._end_us:
             raise AlmanacError("instant %s is outside the almanac (%d-01-01 to %d-12-31)"
                                % (timescale.format_utc(t_us), self.first_year, self.last_year))
-        a = self.year(year_of(t_us))
-        (ra, dec, third), (ra_rate, dec_rate, _) = a.evaluate(body, timescale.utc_to_tt(t_us))
+        day = t_us // US_PER_DAY
+        if day != self._day:        # TT - UTC and the year change only between UTC days
+            self._day_year = self.year(timescale.civil_from_days(day)[0])
+            self._day_tt_us = timescale.tt_minus_utc_us(t_us)
+            self._day = day
+        (ra, dec, third), (ra_rate, dec_rate) = self._day_year.evaluate(body, t_us + self._day_tt_us)
         era = _float(timescale.era_deg(t_us, dut1_us))
         gha = (era - ra) % _float(360.0)
         if gha >= 360.0:            # a tiny negative remainder can round up to 360
@@ -357,9 +373,10 @@ class Almanac(object):
         return Position(body, t_us, gha, dec, sd, hp, _float(ERA_RATE_DEG_PER_S) - ra_rate, dec_rate)
 
 
-def load(path=None):
+def load(path=None, keep_years=2):
     """The ``Almanac`` over the ``YYYY.lca`` files in directory ``path``
-    (default: the shipped ``engine/data``).  Files are read when first needed."""
+    (default: the shipped ``engine/data``).  Files are read when first needed;
+    the last ``keep_years`` parsed years are kept (about 3 KB each)."""
     if path is None:
         path = _data_dir()
     while len(path) > 1 and path[-1] in "/\\":
@@ -378,7 +395,7 @@ def load(path=None):
     for i in range(1, len(years)):
         if years[i] != years[i - 1] + 1:
             raise AlmanacError("almanac files in %s skip from %d to %d" % (path, years[i - 1], years[i]))
-    return Almanac(path, years)
+    return Almanac(path, years, keep_years)
 
 
 def describe_shipped(path=None):
