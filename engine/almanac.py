@@ -351,6 +351,9 @@ class Almanac(object):
             raise AlmanacError("body must be 'sun' or 'moon', got %r" % (body,))
         if not isinstance(t_us, int):
             raise AlmanacError("instant must be an int of microseconds, got %r" % (t_us,))
+        if not isinstance(dut1_us, int) or not -60000000 < dut1_us < 60000000:
+            raise AlmanacError("dut1_us must be an int of microseconds (|DUT1| < 0.9 s today), got %r"
+                               % (dut1_us,))
         if not self._first_us <= t_us < self._end_us:
             raise AlmanacError("instant %s is outside the almanac (%d-01-01 to %d-12-31)"
                                % (timescale.format_utc(t_us), self.first_year, self.last_year))

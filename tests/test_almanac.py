@@ -176,6 +176,21 @@ def test_year_boundaries_and_span():
         ALM.position("venus", first)
     with pytest.raises(almanac.AlmanacError, match="int"):
         ALM.position("sun", 1.7e15)
+    with pytest.raises(almanac.AlmanacError, match="dut1_us"):
+        ALM.position("sun", first, dut1_us=0.3)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(min_value=ts.parse_utc("2025-01-01T00:00:00Z"), max_value=ts.parse_utc("2051-01-01T00:00:00Z") - 1),
+       st.sampled_from(["sun", "moon"]), st.integers(min_value=-900000, max_value=900000))
+def test_any_instant_matches_reference_pipeline(t, body, dut1_us):
+    # vectors/reference.py (DE421 + ERFA) computed now, at instants and DUT1 values hypothesis picks
+    p = ALM.position(body, t, dut1_us)
+    r = reference.apparent(body, t, dut1_s=dut1_us / 1e6)
+    tol = TARGET[body]
+    assert _wrap_arcmin(p.gha_deg, float(r["gha_deg"])) <= tol[0]
+    assert _dm(p.dec_deg - float(r["dec_deg"])) <= tol[1]
+    assert abs(p.sd_arcmin - float(r["sd_arcmin"])) <= tol[2] and abs(p.hp_arcmin - float(r["hp_arcmin"])) <= tol[2]
 
 
 def test_describe_shipped():
