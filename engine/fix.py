@@ -22,7 +22,8 @@ largest errors are shared between contacts):
   covariance rate_i rate_j sigma^2;
 * image deviation: sigma of the image (``sigma_arcmin``, default 1.0'), shared by
   every contact of that image;
-* dip anomaly (default 0.5'), shared by all contacts;
+* dip anomaly (default 1.0'; Tschudin, Applied Optics 55, 3104, 2016: anomalies of
+  an arcminute are common), shared by all contacts;
 * refraction anomaly: one scale error kappa (default 0.05) of the whole
   atmosphere, covariance kappa^2 R_i R_j;
 * yaw (instrument turned off the body's azimuth by psi, sigma
@@ -73,7 +74,7 @@ MAX_STEP_NM = 60.0
 MAX_ITERATIONS = 40
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
 PRESCREEN_K = 5.0                  # robust first pass: gross blunders beyond 5 robust sigma are dropped
-DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 0.5,
+DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 1.0,
             "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0}
 
 
