@@ -289,11 +289,6 @@ def _listdir(path):
     return os, os.listdir(path)
 
 
-def year_of(t_us):
-    """The UTC calendar year of an instant."""
-    return timescale.civil_from_days(t_us // US_PER_DAY)[0]
-
-
 class Almanac(object):
     """The almanac over a directory of ``YYYY.lca`` files, read lazily one year at a time
     (the last two years used are kept)."""
@@ -332,8 +327,11 @@ class Almanac(object):
         if y not in self.years:
             raise AlmanacError("year %d is outside the almanac (%d-%d)" % (y, self.first_year, self.last_year))
         name = "%s/%d.lca" % (self.path, y)
-        with open(name, "rb") as f:
-            data = f.read()
+        try:
+            with open(name, "rb") as f:
+                data = f.read()
+        except OSError as e:
+            raise AlmanacError("%s: cannot be read (%s)" % (name, e))
         a = parse(data, name)
         if a.year != y:
             raise AlmanacError("%s: holds year %d" % (name, a.year))

@@ -196,8 +196,9 @@ def fit_years(first_year, last_year, out_dir, progress=print):
     """Fit and write ``out_dir/YYYY.lca`` for each year; returns {year: (bytes, report)}."""
     if first_year > last_year:
         raise ValueError("first year %d is after last year %d" % (first_year, last_year))
-    if first_year < 1901 or last_year > 2052:
-        raise ValueError("years must lie within 1901..2052 (DE421 covers 1899-07-29 to 2053-10-09)")
+    if first_year < 1973 or last_year > 2052:
+        raise ValueError("years must lie within 1973..2052 (the leap-second table starts in 1972; "
+                         "DE421 ends on 2053-10-09)")
     os.makedirs(out_dir, exist_ok=True)
     results = {}
     for year in range(first_year, last_year + 1):

@@ -242,6 +242,9 @@ def test_other_versions_and_bad_directories_refused(tmp_path):
         alm.position("sun", ts.parse_utc("2029-08-03T06:41:12.250Z"))
     with pytest.raises(almanac.AlmanacError, match="outside the almanac"):
         alm.position("sun", ts.parse_utc("2030-08-03T06:41:12.250Z"))
+    (tmp_path / "2029.lca").unlink()
+    with pytest.raises(almanac.AlmanacError, match="cannot be read"):
+        alm.position("sun", ts.parse_utc("2029-08-03T06:41:12.250Z"))
 
 
 def test_dut1_shifts_gha_by_earth_rotation():
