@@ -246,18 +246,6 @@ def run_fix(args):
     return 0
 
 
-def _engine_fn(module, names):
-    import importlib
-    try:
-        mod = importlib.import_module("engine." + module)
-    except ImportError:
-        raise UserError("engine.%s is not available in this build" % module)
-    for n in names:
-        if hasattr(mod, n):
-            return getattr(mod, n)
-    raise UserError("engine.%s has none of %s" % (module, ", ".join(names)))
-
-
 def run_plan(args):
     conn = open_db(args)
     archive.refresh_sessions(conn)
@@ -278,22 +266,32 @@ def run_plan(args):
 
 
 def run_calibrate(args):
+    from engine import almanac, calibrate, instrument
+    from engine.session import parse_session
     conn = open_db(args)
     archive.refresh_sessions(conn)
     s = archive.get_session(conn, args.session)
     text = archive.session_text(conn, args.session)
-    calibrate = _engine_fn("calibrate", ("calibrate_session", "calibrate_text", "calibrate"))
-    result = calibrate(text)
+    alm = almanac.load()
+    session = parse_session(text, alm)
+    if not session.track.known:
+        raise UserError("session %d: the track is not known (attach a GPS track with --known to calibrate)"
+                        % args.session)
+    inst = instrument.parse_instrument(archive.get_instrument(conn, s["instrument_id"]))
+    result = calibrate.calibrate_session(session, alm, inst)
+    new_inst = calibrate.calibrated_instrument(result, session, inst).to_dict()
     with archive.transaction(conn):
         cid = archive.add_calibration(conn, s["instrument_id"], result)
+        new_id = archive.add_instrument(conn, new_inst)
     if args.json:
-        print(json.dumps(dict(result, calibration_id=cid), indent=1))
+        print(json.dumps(dict(result, calibration_id=cid, calibrated_instrument_id=new_id), indent=1))
         return 0
-    for im in result.get("images", []):
-        print("%-6s %9.4f deg  sigma %s'  from %s contacts" % (im["id"], im["deviation_deg"], im.get("sigma_arcmin"),
-                                                               im.get("contacts")))
-    print("reaction delay %s s; stored as calibration %d of instrument %d"
-          % (result.get("reaction_delay_s"), cid, s["instrument_id"]))
+    from host.cmd_calibrate import render
+    print("\n".join(render(result)))
+    print("stored as calibration %d of instrument %d; the calibrated instrument is archive instrument %d"
+          % (cid, s["instrument_id"], new_id))
+    print()
+    print(CAUTION_TEXT)
     return 0
 
 

@@ -17,6 +17,8 @@ def register(sub):
                    help="always show the progress bar on stderr (default: on a terminal, long transfers)")
     p.add_argument("--no-progress", dest="progress", action="store_false", help="never show the progress bar")
     p.add_argument("--timeout", type=float, default=1.0, metavar="S", help="seconds to wait for each answer")
+    p.add_argument("--batch", type=int, default=None, metavar="N",
+                   help="records per read request (default: as many as a frame holds); smaller on a poor link")
     p.add_argument("--json", action="store_true", help='machine-readable: {"new", "duplicates", "device"}')
     p.set_defaults(func=run_sync)
 
@@ -35,7 +37,9 @@ def run_sync(args):
     db = args.db or archive.default_path()
     if args.timeout <= 0:
         raise UserError("--timeout must be positive")
-    res = sync.sync_port(args.port, db, progress=args.progress, timeout=args.timeout)
+    if args.batch is not None and args.batch < 1:
+        raise UserError("--batch must be at least 1")
+    res = sync.sync_port(args.port, db, progress=args.progress, timeout=args.timeout, batch=args.batch)
     if args.json:
         print(json.dumps({"new": res["new"], "duplicates": res["duplicates"], "device": res["device"],
                           "last_seq": res["last_seq"], "db": db}))

@@ -146,13 +146,13 @@ def _isatty(stream):
         return False
 
 
-def sync_port(port, db_path, progress=None, timeout=1.0, retries=6):
+def sync_port(port, db_path, progress=None, timeout=1.0, retries=6, batch=None):
     """Open the timer on ``port`` and the archive at ``db_path``, sync, close both."""
     from host.timer_client import TimerClient
     conn = archive.connect(db_path)
     try:
         with TimerClient(port, timeout=timeout, retries=retries) as client:
-            return sync(client, conn, progress)
+            return sync(client, conn, progress, batch)
     finally:
         conn.close()
 

@@ -1,0 +1,206 @@
+"""Sync from the virtual timer into the archive: through a real pseudo-terminal with link
+faults, across a pulled cable, and with the sync process killed at random moments.
+
+The outside reference here is the timer's own log (``device.log``, read straight from
+its store before any sync): the archive must end holding exactly those records, each
+once, and SQLite's ``PRAGMA integrity_check`` / ``foreign_key_check`` must pass
+(sqlite.org/pragma.html).  Ordering "commit, then acknowledge" is the contract under
+test (host/sync.py docstring).
+"""
+import os
+import random
+import signal
+import subprocess
+import sys
+import time
+
+import pytest
+
+from device.log import KIND_NAMES
+from device.sim import VirtualTimer
+from engine import timescale
+from host import archive, sync
+from host.timer_client import NoAnswer, TimerClient, VersionMismatch
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+T0 = timescale.parse_utc("2031-05-14T07:00:00Z")
+
+
+def presses(n, step_s=4, moon_every=0):
+    out = []
+    for k in range(n):
+        body = "moon" if moon_every and k % moon_every == moon_every - 1 else "sun"
+        out.append((T0 + k * step_s * 1000000, body, "lower"))
+    return out
+
+
+def device_records(vt):
+    """Every record on the timer's log (not yet acknowledged), straight from its store."""
+    log = vt.fw.log
+    return list(log.records(log.first_seq))
+
+
+def archived(conn, device_id):
+    rows = conn.execute("SELECT seq FROM contacts WHERE device_id=? UNION ALL SELECT seq FROM voids WHERE "
+                        "device_id=? UNION ALL SELECT seq FROM events WHERE device_id=?",
+                        (device_id, device_id, device_id)).fetchall()
+    return sorted(r[0] for r in rows)
+
+
+def check_same(conn, vt, recs):
+    dev = vt.device_id
+    assert archived(conn, dev) == [r.seq for r in recs]           # each once, none missing
+    by_seq = dict((c["seq"], c) for c in archive.contacts(conn, dev))
+    for r in recs:
+        if KIND_NAMES[r.kind] == "contact":
+            c = by_seq[r.seq]
+            assert (c["utc_us"], c["body"], c["limb"], c["uncertainty_us"]) == \
+                (r.utc_us, ("sun", "moon")[r.body], ("lower", "upper")[r.limb], r.uncertainty_us)
+    assert archive.integrity_ok(conn)
+
+
+def test_sync_over_pty_with_link_faults(tmp_path):
+    vt = VirtualTimer(contacts=presses(60, moon_every=7), link_faults=0.001, seed=3)
+    vt.run_contacts()
+    recs = device_records(vt)
+    assert len(recs) >= 60
+    port = vt.start()
+    try:
+        db = str(tmp_path / "a.sqlite3")
+        first = sync.sync_port(port, db, progress=False, timeout=0.1)
+        again = sync.sync_port(port, db, progress=False, timeout=0.1)
+    finally:
+        vt.stop()
+    assert first["new"] == len(recs) and first["device"] == vt.device_id
+    assert again == dict(again, new=0, duplicates=0)
+    conn = archive.connect(db)
+    check_same(conn, vt, recs)
+    # everything committed was acknowledged: the timer may reclaim all of it
+    assert vt.fw.log.confirmed_seq == recs[-1].seq == archive.last_seq(conn, vt.device_id)
+
+
+class CutCable(object):
+    """A transport that dies for good after ``limit`` bytes were read (the cable is pulled)."""
+
+    def __init__(self, inner, limit):
+        self.inner = inner
+        self.left = limit
+
+    def __getattr__(self, name):
+        return getattr(self.inner, name)
+
+    def read(self, n=1):
+        if self.left <= 0:
+            raise OSError("device disconnected")
+        data = self.inner.read(n)
+        self.left -= len(data)
+        return data
+
+
+def test_pulled_cable_then_resync_gets_exactly_the_rest(tmp_path):
+    vt = VirtualTimer(contacts=presses(300))
+    vt.run_contacts()
+    recs = device_records(vt)
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    with pytest.raises(OSError, match="went away"):
+        sync.sync(TimerClient(CutCable(vt.loopback(), 3000)), conn, progress=False)
+    part = archive.last_seq(conn, vt.device_id)
+    assert 0 < part < recs[-1].seq
+    assert archived(conn, vt.device_id) == [r.seq for r in recs if r.seq <= part]   # whole batches only
+    # a noisy reconnection that also loses bursts mid-frame (the loopback's own cable fault)
+    lb = vt.loopback(faults=0.005)
+    lb.disconnect_after = 2000
+    res = sync.sync(TimerClient(lb, timeout=0.2), conn, progress=False)
+    assert res["new"] == recs[-1].seq - part and res["duplicates"] == 0
+    check_same(conn, vt, recs)
+
+
+def test_progress_bar_on_long_transfers(tmp_path):
+    import io
+    vt = VirtualTimer(contacts=presses(260))
+    vt.run_contacts()
+    err = io.StringIO()
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    res = sync.sync(TimerClient(vt.loopback()), conn, progress=True, stream=err)
+    text = err.getvalue()
+    assert res["new"] >= 260
+    assert text.startswith("\rsync LC-SIM1 [") and text.endswith("/s\n") and text.count("\r") >= 5
+    assert "] %d/%d records" % (res["new"], res["new"]) in text
+
+
+def test_version_mismatch_and_silence(monkeypatch, tmp_path):
+    import device.protocol
+    vt = VirtualTimer(contacts=presses(3))
+    monkeypatch.setattr(device.protocol, "PROTOCOL_VERSION", 99)
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    with pytest.raises(VersionMismatch, match="protocol version 99"):
+        sync.sync(TimerClient(vt.loopback()), conn)
+    assert archive.devices(conn) == []
+    master, slave = os.openpty()          # a port where nobody answers
+    try:
+        with pytest.raises(NoAnswer, match="no answer from the timer"):
+            sync.sync_port(os.ttyname(slave), str(tmp_path / "b.sqlite3"), timeout=0.05, retries=1)
+    finally:
+        os.close(master)
+        os.close(slave)
+
+
+def test_reset_timer_is_refused(tmp_path):
+    """A timer whose log restarted below what the archive holds is not silently mixed in."""
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    vt = VirtualTimer(contacts=presses(40))
+    vt.run_contacts()
+    sync.sync(TimerClient(vt.loopback()), conn)
+    fresh = VirtualTimer(contacts=presses(5))      # same id, log starting again at 1
+    fresh.run_contacts()
+    with pytest.raises(sync.SyncError, match="was the timer reset"):
+        sync.sync(TimerClient(fresh.loopback()), conn)
+
+
+def test_push_instrument_is_verified(tmp_path):
+    vt = VirtualTimer(contacts=presses(2))
+    doc = (b'{"format": "limbclock-instrument/1", "name": "t", "images": '
+           b'[{"id": "i01", "deviation_deg": 5.7}, {"id": "i02", "deviation_deg": 8.8}]}')
+    client = TimerClient(vt.loopback())
+    res = sync.push(client, "instrument", doc)
+    import binascii
+    assert res["verified"] and res["size"] == len(doc) and res["crc32"] == "%08x" % binascii.crc32(doc)
+    assert client.file_info("instrument")["crc32"] == binascii.crc32(doc)
+    with pytest.raises(ValueError, match="format"):
+        sync.push(client, "instrument", b'{"format": "something-else/1"}')
+
+
+def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
+    """Kill ``limbclock sync`` (SIGKILL) at seeded random moments, then sync to the end."""
+    vt = VirtualTimer(contacts=presses(1500, step_s=2))
+    vt.run_contacts()
+    recs = device_records(vt)
+    port = vt.start()
+    db = str(tmp_path / "a.sqlite3")
+    rng = random.Random(1234)
+    cmd = [sys.executable, "-m", "host", "sync", "--port", port, "--db", db, "--no-progress", "--timeout", "0.3",
+           "--batch", "4"]
+    mid_transfer = 0
+    try:
+        for _ in range(10):
+            proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+            time.sleep(rng.uniform(0.1, 0.7))
+            killed = proc.poll() is None
+            if killed:
+                proc.send_signal(signal.SIGKILL)
+            proc.wait(10)
+            if os.path.exists(db):
+                conn = archive.connect(db)
+                got = archived(conn, vt.device_id)
+                assert got == list(range(recs[0].seq, recs[0].seq + len(got)))   # a prefix, each once
+                assert archive.integrity_ok(conn)
+                conn.close()
+                mid_transfer += killed and 0 < len(got) < len(recs)
+        out = subprocess.run(cmd + ["--json"], cwd=ROOT, capture_output=True, text=True, timeout=60)
+        assert out.returncode == 0, out.stderr
+    finally:
+        vt.stop()
+    assert mid_transfer >= 3
+    conn = archive.connect(db)
+    check_same(conn, vt, recs)
+    assert vt.fw.log.confirmed_seq == recs[-1].seq
