@@ -192,7 +192,7 @@ def write_card(path, contacts, track, observer, t_from, t_to, zone_min):
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
     from matplotlib.backends.backend_agg import FigureCanvasAgg
-    height = 0.5 + 0.16 * len(lines)
+    height = 0.6 + 0.108 * len(lines)     # 6.5 pt monospace: about 0.1 in per line
     fig = Figure(figsize=(8.27, max(height, 3.0)))
     FigureCanvasAgg(fig)
     fig.text(0.03, 0.98, "\n".join(lines), family="monospace", fontsize=6.5, va="top")

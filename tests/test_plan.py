@@ -124,6 +124,10 @@ def test_cli_plan_with_session_and_without(tmp_path, capsys):
     assert ("%s  %s  %s" % (local, utc, first["image"])) in text
     assert "shade glass" in text and "UTC-01:00" in text
     assert "shade glass" in card.read_text()
+    png = tmp_path / "card.png"
+    assert main(["plan", str(path), "--from", s["from"], "--to", s["to"], "--card", str(png)]) == 0
+    assert png.read_bytes()[:4] == b"\x89PNG"
+    capsys.readouterr()
     assert main(["plan", "--lat", "38", "--from", s["from"]]) == 2
     assert "--lat, --lon and --instrument" in capsys.readouterr().err
     assert main(["plan", str(path), "--from", s["from"], "--zone", "+99"]) == 2
