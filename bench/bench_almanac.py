@@ -21,12 +21,13 @@ SUBSAMPLE = 200
 
 
 def _series_arrays(year_obj, body):
-    """All segments of one body decoded by the engine: list of 3 arrays (nseg, N+1) of ints x quantum."""
+    """All segments of one body decoded by the engine: 3 arrays (nseg, N+1) of coefficients in the
+    quantities' units (the engine's decoder scales the integers by the quantum)."""
     s = year_obj._series(body)
     out = [[], [], []]
     for i in range(s.nseg):
-        for q, (quant, c) in enumerate(zip(s.quantities, year_obj._coefficients(s, i))):
-            out[q].append(np.array(c) * quant.quantum)
+        for q, c in enumerate(year_obj._coefficients(s, i)):
+            out[q].append(np.array(c, dtype=float))
     return s, [np.array(o) for o in out]
 
 
