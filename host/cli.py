@@ -15,6 +15,7 @@ COMMANDS = (
     "host.cmd_ladder",
     "host.cmd_plan",
     "host.cmd_calibrate",
+    "host.cmd_identify",
     "host.cmd_almanac",
     "host.cmd_archive",
     "host.cmd_fix",

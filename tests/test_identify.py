@@ -148,3 +148,20 @@ def test_identify_and_calibrate_under_micropython():
     for (iid, dev), im in zip(got[:-1], ref["images"]):
         assert iid == im["id"] and abs(dev - im["deviation_deg"]) * 60 < 0.01
     assert abs(got[-1] - ref["reaction_delay_s"]) < 0.01
+
+
+def test_cli_identify(tmp_path, capsys):
+    from host.cli import main
+    scn = DOC["scenarios"][2]
+    pick = scn["contacts"][20:26]
+    path = tmp_path / "s.json"
+    path.write_text(session_text(scn, pick, -18.0, 11.0, labelled=(0,)))
+    assert main(["identify", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert [c["image"] for c in d["contacts"]] == [c["image"] for c in pick]
+    assert d["contacts"][0]["given"] and not d["contacts"][1]["given"]
+    assert main(["identify", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert pick[3]["image"] in out and "shade glass" in out
+    assert main(["identify", str(path), "--dr-sigma", "0"]) == 2
+    assert "--dr-sigma" in capsys.readouterr().err

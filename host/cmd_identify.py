@@ -1,0 +1,64 @@
+"""``limbclock identify``: which image made each unlabelled contact (and which labels do not fit)."""
+import json
+
+from engine import identify
+from host.cautions import CAUTION_TEXT
+from host.errors import UserError
+
+
+def register(sub):
+    p = sub.add_parser("identify", help="assign images to contacts timed without one",
+                       description="Find which image made each contact whose image is null: the assignments "
+                                   "one position explains best, ranked, with the DR as a prior.  Ambiguous "
+                                   "contacts are reported, not guessed.  --cold-start searches the globe when "
+                                   "there is no usable DR.")
+    p.add_argument("session", help="limbclock-session/1 file")
+    p.add_argument("--dr-sigma", type=float, help="DR uncertainty, nmi (default: session key dr_sigma_nm or 30)")
+    p.add_argument("--cold-start", action="store_true", help="no usable DR: search the whole globe")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=run)
+
+
+def run(args):
+    from engine import almanac
+    from engine.session import parse_session
+    from engine.timescale import format_utc
+    from engine.angles import fmt_lat, fmt_lon
+    alm = almanac.load()
+    with open(args.session, "rb") as f:
+        s = parse_session(f.read(), alm)
+    if args.dr_sigma is not None and not 0.1 <= args.dr_sigma <= 3000.0:
+        raise UserError("--dr-sigma: %r not within 0.1..3000 nmi" % args.dr_sigma)
+    if args.cold_start:
+        cands = identify.cold_start(s, alm)
+        if args.json:
+            print(json.dumps({"format": "limbclock-identify/1", "cold_start": True, "candidates": cands}, indent=1))
+            return 0
+        print("Cold start: positions (at the last contact) that explain every contact, best first")
+        for k, c in enumerate(cands):
+            print("  %d. %s %s  rms %.2f'  images %s" % (k + 1, fmt_lat(c["lat_deg"]), fmt_lon(c["lon_deg"]),
+                                                         c["rms_arcmin"], " ".join(c["images"])))
+        print("Candidates with an rms of several arcmin do not fit; more than one that fits: take more sights.")
+        print()
+        print(CAUTION_TEXT)
+        return 0
+    r = identify.identify(s, alm, args.dr_sigma)
+    if args.json:
+        print(json.dumps(dict(r, format="limbclock-identify/1", cold_start=False), indent=1))
+        return 0
+    by_index = dict((c.index, c) for c in s.contacts)
+    print("Image identification (DR sigma %.0f nmi, searched within %.0f nmi)" % (r["dr_sigma_nm"], r["radius_nm"]))
+    print()
+    print("  #    UTC                     body  limb   image  confidence  note")
+    for c in r["contacts"]:
+        sc = by_index[c["index"]]
+        note = "given" if c["given"] else ""
+        if c["ambiguous"]:
+            note = "AMBIGUOUS: %s" % " or ".join(c["alternatives"])
+        print("  %-3d  %s  %-4s  %-5s  %-5s  %10.2f  %s" % (c["index"], format_utc(sc.t_us, 2), sc.body, sc.limb,
+                                                           c["image"] or "-", c["confidence"], note))
+    for w in r["warnings"]:
+        print("warning: " + w)
+    print()
+    print(CAUTION_TEXT)
+    return 0
