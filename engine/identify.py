@@ -22,7 +22,10 @@ Method (one scheme for a good and a poor DR):
    cost = sum ((Hs_i - D_i) / sigma_i)^2 + |offset|^2 / sigma_DR^2, and the best
    few are refined by Gauss-Newton in position (intercepts and azimuths of
    ``model.contact_residual_arcmin``: a small least-squares fix with the DR
-   prior).
+   prior), then re-assigned to the nearest images at the refined position and
+   refined again until the assignment is stable (at most three rounds: the
+   grid is capped at 1600 points, so for closely spaced images it can be
+   coarser than a third of the spacing).
 3. Ranking by the refined cost.  Relative weights exp(-cost/2) give each
    assignment a probability; a contact is assigned when the assignments that
    together hold ``confidence`` (default 0.99) agree on it.  Otherwise it is
@@ -228,9 +231,19 @@ def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_
     cands = _hypotheses(p, radius_nm)
     ranked = sorted(cands.items(), key=lambda kv: kv[1][0])[:REFINE_TOP]
     refined = []
+    seen = set()
     for assign, (_c, north, east) in ranked:
-        cost, n2, e2 = _refine(p, assign, north, east)
-        refined.append((cost, assign, n2, e2))
+        for _round in range(3):
+            cost, north, east = _refine(p, assign, north, east)
+            # the nearest images at the refined position (the grid may have been coarse)
+            again = _assign_at(p, _offset_positions(p, north, east))[0]
+            if again == assign:
+                break
+            assign = again
+        if assign in seen:
+            continue
+        seen.add(assign)
+        refined.append((cost, assign, north, east))
     refined.sort(key=lambda r: (r[0], [_dev_rank(p, a) for a in r[1]]))
     best_cost = refined[0][0]
     weights = [math.exp(-0.5 * (r[0] - best_cost)) for r in refined]

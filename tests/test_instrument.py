@@ -42,10 +42,11 @@ def test_two_reflections_deviate_by_twice_the_plate_angle(x_deg, inc_deg):
     assert abs(lad.images[0].deviation_deg - dev) * 60.0 < 1e-6
 
 
-def trace_stack(angles_deg, max_reflections, incidence_deg=40.0, spacing=1.0, half_len=15.0):
+def trace_stack(angles_deg, max_reflections, incidence_deg=40.0, spacing=1.0, half_len=15.0, rt=None):
     """Trace a ray through thin plates (2-D segments), splitting at every plate into a transmitted
     and a reflected ray.  Returns {(deviation rounded to 1e-6 deg): number of paths} of the rays that
-    leave behind the last plate after at least one reflection."""
+    leave behind the last plate after at least one reflection; with ``rt`` = [(R, T) per
+    polarisation] the value is instead the summed intensity, averaged over the polarisations."""
     thetas = [0.0]
     for a in angles_deg:
         thetas.append(thetas[-1] + a)
@@ -71,20 +72,21 @@ def trace_stack(angles_deg, max_reflections, incidence_deg=40.0, spacing=1.0, ha
                 best = (t, k)
         return best
 
-    stack = [((-1.0, -10.0), d0, 0, -1)]
+    stack = [((-1.0, -10.0), d0, 0, -1, 0)]
     while stack:
-        p, d, nref, last = stack.pop()
+        p, d, nref, last, ntrans = stack.pop()
         h = hit(p, d, last)
         if h is None:
             if nref and p[0] > len(angles_deg) * spacing - 1e-6 and d[0] > 0:
                 dev = round(abs(angle_between_2d(d0, d)), 6)
-                out[dev] = out.get(dev, 0) + 1
+                w = 1 if rt is None else 0.5 * sum(r ** nref * tt ** ntrans for r, tt in rt)
+                out[dev] = out.get(dev, 0) + w
             continue
         t, k = h
         q = (p[0] + t * d[0], p[1] + t * d[1])
-        stack.append((q, d, nref, k))                       # transmitted
+        stack.append((q, d, nref, k, ntrans + 1))                       # transmitted
         if nref < max_reflections:
-            stack.append((q, tuple(reflect(d, plates[k][2])), nref + 1, k))   # reflected
+            stack.append((q, tuple(reflect(d, plates[k][2])), nref + 1, k, ntrans))   # reflected
     return out
 
 
@@ -95,6 +97,19 @@ def test_ladder_matches_ray_traced_stack(angles, order):
     lad = ins.ladder(angles, max_order=order, faint_ratio=0.0, min_fraction=0.0)
     got = {round(im.deviation_deg, 6): im.paths for im in lad.images}
     assert got == traced
+
+
+@pytest.mark.parametrize("angles,order", [([2.7, 4.05], 2), ([1.9, 3.1, 4.4], 2)])
+def test_ladder_brightness_matches_ray_traced_intensities(angles, order):
+    # every traced path carries R_plate per reflection and T_plate per plate crossing, per polarisation
+    # (plate values from the textbook Fresnel forms + Stokes' sums below); the ladder counts them itself
+    rs, rp = fresnel_textbook(45.0, 1.52)
+    rt = [(2 * r / (1 + r), (1 - r) / (1 + r)) for r in (rs, rp)]
+    traced = trace_stack(angles, 2 * order, rt=rt)
+    lad = ins.ladder(angles, max_order=order, incidence_deg=45.0, faint_ratio=0.0, min_fraction=0.0)
+    assert len(lad.images) == len(traced)
+    for im in lad.images:
+        assert abs(im.fraction / traced[round(im.deviation_deg, 6)] - 1) < 1e-9
 
 
 def test_two_to_three_ratio_gives_an_even_grid():
