@@ -58,6 +58,7 @@ def run_push(args):
             data = f.read()
     except OSError as exc:
         raise UserError("--%s %s: %s" % (slot, path, exc.strerror or exc))
+    sync.check_file(slot, data)        # a bad file is refused before the port is even opened
     with TimerClient(args.port) as client:
         res = sync.push(client, slot, data)
     if args.json:

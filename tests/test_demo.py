@@ -1,0 +1,99 @@
+"""The end-to-end demo (``limbclock demo``) and the archive commands on its output.
+
+The demo's data are invented (host/demo.py), so its truth is the scenario itself: the fix
+must land nearer the true position than the dead reckoning does.  The files it writes
+are checked against their standards: PNG signature (ISO/IEC 15948:2004 section 5.2),
+SVG namespace (W3C SVG 1.1), GPX 1.1 namespace and structure (topografix.com/GPX/1/1),
+GeoJSON coordinate order lon, lat (RFC 7946 section 3.1.1), CSV (RFC 4180) with one row
+per contact; the session file is read back by the engine's own reader (DESIGN.md).
+"""
+import csv
+import json
+import os
+import subprocess
+import sys
+import xml.etree.ElementTree as ET
+
+import pytest
+
+from engine.session import parse_session
+from host import archive
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+GPX = "{http://www.topografix.com/GPX/1/1}"
+
+
+def limbclock(*args, timeout=120):
+    p = subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
+                       timeout=timeout)
+    assert p.returncode == 0, p.stderr
+    return p.stdout
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = str(tmp_path_factory.mktemp("demo") / "out")
+    text = limbclock("demo", "--out", out, "--json")
+    human, _, js = text.partition("\n{\n")
+    return out, human, json.loads("{\n" + js)
+
+
+def test_demo_runs_the_whole_chain(demo):
+    out, human, s = demo
+    assert s["sync"]["via"] == "virtual timer" and s["sync"]["new"] >= s["contacts"] >= 10
+    assert s["wall_s"] < 60
+    # the fix beats the dead reckoning against the scenario's truth
+    assert s["error_nm"] < s["dr_error_nm"] and s["error_nm"] < 4.0
+    # identification gave the unlabelled contacts their images; the mislabelled one was caught
+    assert s["labels_correct"] >= s["contacts"] - 1
+    assert "fix error" in human and "shade glass" in human.splitlines()[-3]
+
+
+def test_demo_files(demo):
+    out, _, s = demo
+    fix = s["fix"]
+    for name in ("plotting-sheet.png", "contact-timeline.png"):
+        with open(os.path.join(out, name), "rb") as f:
+            assert f.read(8) == b"\x89PNG\r\n\x1a\n"
+        assert os.path.getsize(os.path.join(out, name)) > 30000
+    assert ET.parse(os.path.join(out, "plotting-sheet.svg")).getroot().tag == "{http://www.w3.org/2000/svg}svg"
+    gpx = ET.parse(os.path.join(out, "fixes.gpx")).getroot()
+    assert gpx.tag == GPX + "gpx" and gpx.get("version") == "1.1"
+    wpt = gpx.find(GPX + "wpt")
+    assert float(wpt.get("lat")) == pytest.approx(fix["lat_deg"], abs=1e-7)
+    assert float(wpt.get("lon")) == pytest.approx(fix["lon_deg"], abs=1e-7)
+    assert len(gpx.findall(GPX + "trk/" + GPX + "trkseg/" + GPX + "trkpt")) > 50
+    with open(os.path.join(out, "fixes.geojson")) as f:
+        gj = json.load(f)
+    point = [ft for ft in gj["features"] if ft["geometry"]["type"] == "Point"][0]
+    assert point["geometry"]["coordinates"] == pytest.approx([fix["lon_deg"], fix["lat_deg"]], abs=1e-7)
+    lops = [ft for ft in gj["features"] if ft["properties"]["kind"] == "lop"]
+    assert len(lops) == sum(1 for c in fix["contacts"] if c.get("residual_nm") is not None)
+    with open(os.path.join(out, "contacts.csv"), newline="") as f:
+        rows = list(csv.DictReader(f))
+    assert len(rows) == s["contacts"] and all(r["device"] == "LC-DEMO-07" for r in rows)
+    with open(os.path.join(out, "session.json"), "rb") as f:
+        session = parse_session(f.read())
+    assert len(session.contacts) == s["contacts"] and session.track.known is False
+
+
+def test_archive_commands_on_the_demo_archive(demo):
+    out, _, s = demo
+    db = os.path.join(out, "archive.sqlite3")
+    conn = archive.connect(db)
+    assert archive.integrity_ok(conn)
+    conn.close()
+    exp = json.loads(limbclock("export", "--db", db, "--json"))
+    assert len(exp["contacts"]) == s["contacts"]
+    assert set(("utc", "seq", "device", "void")) <= set(exp["contacts"][0])
+    assert [c["seq"] for c in exp["contacts"]] == sorted(c["seq"] for c in exp["contacts"])
+    listing = json.loads(limbclock("session", "--db", db, "--json"))
+    sid = listing[0]["session_id"]
+    assert listing[0]["contacts"] == s["contacts"] and listing[0]["fixes"] == 1
+    again = json.loads(limbclock("archive", "fix", "--db", db, "--session", str(sid), "--json"))
+    # labels identified in the first run are now in the archive; the fix is the same position
+    assert again["lat_deg"] == pytest.approx(s["fix"]["lat_deg"], abs=1e-6)
+    assert again["lon_deg"] == pytest.approx(s["fix"]["lon_deg"], abs=1e-6)
+    assert json.loads(limbclock("session", "--db", db, "--json"))[0]["fixes"] == 2
+    human = limbclock("export", "--db", db, "--csv", os.path.join(out, "again"))
+    assert "2 fixes" in human and "wrote" in human
