@@ -440,7 +440,10 @@ class Instrument:
         return d
 
     def dumps(self):
-        return json.dumps(self.to_dict(), indent=1) + "\n"
+        try:
+            return json.dumps(self.to_dict(), indent=1) + "\n"
+        except TypeError:      # MicroPython's json has no indent
+            return json.dumps(self.to_dict()) + "\n"
 
 
 def from_ladder(lad, name="", include_faint=False):

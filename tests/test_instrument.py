@@ -334,8 +334,12 @@ def test_ladder_under_micropython():
     code = ("import json\nfrom engine import instrument as I\n"
             "L = I.ladder([2.7, 4.0], 3, shade_od=5.0)\n"
             "print(json.dumps([[im.id, im.deviation_deg, im.paths, im.fraction, im.faint] for im in L.images]))\n"
-            "print(I.yaw_loss_arcmin(30.0, 2.0))\n")
+            "print(I.yaw_loss_arcmin(30.0, 2.0))\n"
+            "inst = I.parse_instrument(I.from_ladder(L, 'mp').dumps())\n"
+            "print(json.dumps(inst.to_dict()))\n")
     out = run_micropython(code).strip().splitlines()
+    assert json.loads(out[-1]) == ins.from_ladder(ins.ladder([2.7, 4.0], 3, shade_od=5.0), "mp").to_dict()
+    out = out[:-1]
     got = json.loads(out[-2])
     lad = ins.ladder([2.7, 4.0], 3, shade_od=5.0)
     assert [g[0] for g in got] == [im.id for im in lad.images]
