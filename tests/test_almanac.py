@@ -255,3 +255,21 @@ def test_dut1_shifts_gha_by_earth_rotation():
     assert abs(_wrap_arcmin(b.gha_deg, a.gha_deg) - 0.5 * 360.0 * 1.00273781191135448 / 86400 * 60) < 1e-4
     assert b.dec_deg == a.dec_deg
     assert math.isclose(b.gha_rate_deg_per_s, a.gha_rate_deg_per_s)
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.lists(st.integers(min_value=1, max_value=29).flatmap(
+    lambda w: st.tuples(st.just(w), st.integers(min_value=-(1 << (w - 1)), max_value=(1 << (w - 1)) - 1))),
+    min_size=1, max_size=40))
+def test_bit_packing_round_trip(fields):
+    # the fitter's writer (host/almanac_fit.py) and the engine's reader agree on every width 1..29
+    # at every bit alignment, including the two-byte over-read the reader relies on (4-byte CRC after)
+    from host.almanac_fit import _BitWriter
+    bw = _BitWriter()
+    for w, v in fields:
+        bw.put(v, w)
+    buf = bw.tobytes() + b"\0\0\0\0"
+    pos = 0
+    for w, v in fields:
+        assert almanac._signed_bits(buf, pos, w) == v
+        pos += w
