@@ -27,7 +27,7 @@ def gather():
     try:
         from engine import almanac
         info["almanac"] = almanac.describe_shipped()
-    except (ImportError, AttributeError) as exc:
+    except (ImportError, AttributeError, ValueError) as exc:
         info["almanac"] = "unavailable: %s" % exc
     return info
 
