@@ -37,6 +37,17 @@ def run(args):
     if args.json:
         print(json.dumps(info, indent=2))
         return 0
+    alm = info.pop("almanac")
     for k, v in info.items():
-        print("%-24s %s" % (k, v))
+        print("%-24s %s" % (k, v if v is not None else "not installed"))
+    if isinstance(alm, dict):
+        sizes = [f["bytes"] for f in alm.get("files", [])]
+        print("%-24s %s" % ("almanac files", alm.get("dir")))
+        print("%-24s %s .. %s (years %s)" % ("almanac reaches", alm.get("first_utc"), alm.get("last_utc"),
+                                             alm.get("years")))
+        if sizes:
+            print("%-24s %d files, %d bytes (%d..%d per year)" % ("almanac size", len(sizes), sum(sizes),
+                                                                 min(sizes), max(sizes)))
+    else:
+        print("%-24s %s" % ("almanac", alm))
     return 0
