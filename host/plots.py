@@ -37,6 +37,16 @@ from host.cautions import CAUTION_SHORT
 COLOURS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#ff7f0e", "#17becf", "#8c564b", "#e377c2",
            "#7f7f7f", "#bcbd22")
 REJECTED = "0.55"
+UNKNOWN = "k"
+
+
+def image_colour(image_id):
+    """One colour per image, the same on every plot (by the image number of ids like ``i07``)."""
+    if not image_id:
+        return UNKNOWN
+    digits = "".join(ch for ch in image_id if ch.isdigit())
+    k = int(digits) - 1 if digits else sum(ord(ch) for ch in image_id)
+    return COLOURS[k % len(COLOURS)]
 
 
 def _figure(w_in, h_in):
@@ -112,8 +122,8 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
         reach.append(1.3 * sphere.distance_nm(lat0, lon0, truth[0], truth[1]) + 1.0)
     r_nm = radius_nm or min(max(reach), 60.0)
 
-    fig = _figure(8.2, 8.6)
-    ax = fig.add_axes([0.13, 0.13, 0.80, 0.78])
+    fig = _figure(8.2, 9.4)
+    ax = fig.add_axes([0.13, 0.2, 0.80, 0.72])
     k = 1.0 / cosd(lat0)
     dlat = r_nm / 60.0
     dlon = r_nm / 60.0 * k
@@ -136,7 +146,7 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
         for p in pts[::10]:
             ax.plot([p[2]], [p[1]], marker="o", ms=2.5, color="0.25", zorder=2)
     if dr:
-        ax.plot([dr["lon_deg"]], [dr["lat_deg"]], marker="s", mfc="white", mec="0.2", ms=7, zorder=4,
+        ax.plot([dr["lon_deg"]], [dr["lat_deg"]], marker="s", mfc="white", mec="0.2", ms=7, zorder=4, ls="none",
                 label="DR at fix time")
 
     # lines of position
@@ -145,7 +155,7 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
         if c.get("residual_nm") is None or c.get("zn_deg") is None:
             continue
         used = c.get("used", True)
-        colour = COLOURS[n % len(COLOURS)] if used else REJECTED
+        colour = image_colour(c.get("image")) if used else REJECTED
         a, b = lop_points(fix, c, half_length_nm=2.5 * r_nm)
         ax.plot([a[1], b[1]], [a[0], b[0]], color=colour, lw=1.6 if used else 1.0, ls="-" if used else "--",
                 zorder=3, label=None if used or legend_rejected else "rejected line")
@@ -178,11 +188,11 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
         ax.fill([p[1] for p in ring], [p[0] for p in ring], color="#ffcc00", alpha=0.30, zorder=4, lw=0)
         ax.plot([p[1] for p in ring], [p[0] for p in ring], color="#b8860b", lw=1.2, zorder=4,
                 label="95%% ellipse %.1f \u00d7 %.1f nmi" % (e["major_nm"], e["minor_nm"]))
-    ax.plot([lon0], [lat0], marker="+", color="k", ms=16, mew=2.0, zorder=6,
+    ax.plot([lon0], [lat0], marker="+", color="k", ms=16, mew=2.0, zorder=6, ls="none",
             label="fix %s %s %sZ" % (fmt_lat(lat0), fmt_lon(lon0), _hhmmss(fix["utc"])))
     if truth:
         miss = sphere.distance_nm(lat0, lon0, truth[0], truth[1])
-        ax.plot([truth[1]], [truth[0]], marker="*", color="#2ca02c", mec="k", mew=0.6, ms=14, zorder=6,
+        ax.plot([truth[1]], [truth[0]], marker="*", color="#2ca02c", mec="k", mew=0.6, ms=14, zorder=6, ls="none",
                 label="true position (scenario), %.2f nmi from fix" % miss)
 
     # scale bar, lower left, along a parallel
@@ -199,16 +209,16 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
                 ha="center", va="center", fontsize=9, fontweight="bold",
                 arrowprops=dict(arrowstyle="-|>", color="k", lw=1.2))
 
-    ax.legend(loc="upper right", fontsize=7.5, framealpha=0.9)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.07), ncol=2, fontsize=7.5, frameon=False)
     ax.set_xlabel("longitude", fontsize=9)
     ax.set_ylabel("latitude", fontsize=9)
     used = sum(1 for c in contacts if c.get("used", True))
     sub = "%d lines used, %d rejected" % (used, len(contacts) - used) if contacts else ""
     if fix.get("sigma0") is not None:
         sub += ", sigma0 %.2f" % fix["sigma0"]
-    fig.text(0.5, 0.965, title or "Plotting sheet: fix at %s" % fix["utc"], ha="center", fontsize=11.5,
+    fig.text(0.5, 0.972, title or "Plotting sheet: fix at %s" % fix["utc"], ha="center", fontsize=11.5,
              fontweight="bold")
-    fig.text(0.5, 0.935, "Mercator-correct local chart, lines of position at the fix epoch; " + sub,
+    fig.text(0.5, 0.947, "Mercator-correct local chart, lines of position at the fix epoch; " + sub,
              ha="center", fontsize=8.5, color="0.25")
     _cautions(fig)
     return _save(fig, path)
@@ -218,16 +228,16 @@ def contact_timeline(fix, path, predicted=None, title=None):
     """Draw the contact timeline of ``fix`` (``limbclock-fix/1`` dict) to ``path``.
 
     ``predicted``: contacts predicted at the DR track (``engine.plan`` / ``limbclock plan``
-    dicts with ``utc``, ``image``), or None."""
-    from matplotlib.dates import DateFormatter
+    dicts with ``utc``, ``image``), or None.  Each timed contact is marked with its
+    difference from the nearest prediction of the same image (seconds, when within 10 min)."""
     import datetime as _dt
+    from matplotlib.dates import DateFormatter
 
     contacts = fix.get("contacts") or []
     predicted = predicted or []
 
     def when(u):
-        t = timescale.parse_utc(u)
-        return _dt.datetime(1970, 1, 1) + _dt.timedelta(microseconds=t)
+        return _dt.datetime(1970, 1, 1) + _dt.timedelta(microseconds=timescale.parse_utc(u))
 
     ids = []
     for c in list(predicted) + list(contacts):
@@ -237,49 +247,72 @@ def contact_timeline(fix, path, predicted=None, title=None):
     ids.sort(key=lambda s: (s == "?", s))
     row = dict((im, k) for k, im in enumerate(ids))
 
-    fig = _figure(9.5, 6.6)
-    ax1 = fig.add_axes([0.09, 0.55, 0.88, 0.34])
-    ax2 = fig.add_axes([0.09, 0.14, 0.88, 0.34], sharex=ax1)
+    fig = _figure(9.5, 7.0)
+    ax1 = fig.add_axes([0.09, 0.52, 0.88, 0.33])
+    ax2 = fig.add_axes([0.09, 0.13, 0.88, 0.31], sharex=ax1)
     for p in predicted:
         im = p.get("image") or "?"
-        ax1.plot([when(p["utc"])], [row[im]], marker="|", ms=16, mew=1.5, color="0.45", ls="none", zorder=2)
-    for n, c in enumerate(contacts):
+        ax1.plot([when(p["utc"])], [row[im]], marker="|", ms=20, mew=1.2, color="0.5", ls="none", zorder=2)
+    pred_us = {}
+    for p in predicted:
+        pred_us.setdefault(p.get("image"), []).append(timescale.parse_utc(p["utc"]))
+    for c in contacts:
         im = c.get("image") or "?"
         used = c.get("used", True)
-        ax1.plot([when(c["utc"])], [row[im]], marker="o" if used else "X", ms=7, ls="none", zorder=3,
-                 color=COLOURS[n % len(COLOURS)] if used else REJECTED)
-    ax1.plot([], [], marker="|", ms=12, mew=1.5, color="0.45", ls="none", label="predicted at DR (plan)")
-    ax1.plot([], [], marker="o", ms=7, color=COLOURS[0], ls="none", label="timed contact")
-    ax1.plot([], [], marker="X", ms=7, color=REJECTED, ls="none", label="timed, rejected")
+        colour = image_colour(c.get("image")) if used else REJECTED
+        ax1.plot([when(c["utc"])], [row[im]], marker="o" if used else "X", ms=6.5, ls="none", zorder=3,
+                 color=colour, mec="white" if used else colour, mew=0.6)
+        near = [t for t in pred_us.get(c.get("image"), [])]
+        if near:
+            t = timescale.parse_utc(c["utc"])
+            best = min(near, key=lambda u: abs(u - t))
+            if abs(best - t) < 600000000:
+                ax1.annotate("%+.0f s" % ((t - best) / 1e6), (when(c["utc"]), row[im]), textcoords="offset points",
+                             xytext=(0, -13), ha="center", fontsize=6.5, color=colour)
+    ax1.plot([], [], marker="|", ms=12, mew=1.2, color="0.5", ls="none", label="predicted at the DR (plan)")
+    ax1.plot([], [], marker="o", ms=6.5, color=COLOURS[0], ls="none", label="timed contact (timed - predicted)")
+    ax1.plot([], [], marker="X", ms=6.5, color=REJECTED, ls="none", label="timed, rejected by the fix")
     ax1.set_yticks(range(len(ids)))
     ax1.set_yticklabels(ids, fontsize=8)
-    ax1.set_ylim(-0.7, len(ids) - 0.3)
+    ax1.set_ylim(-0.8, len(ids) - 0.4)
     ax1.set_ylabel("image", fontsize=9)
     ax1.grid(True, axis="x", alpha=0.3)
-    ax1.legend(loc="upper left", fontsize=7.5, ncol=3, framealpha=0.9)
+    ax1.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01), fontsize=7.5, ncol=3, frameon=False)
     ax1.tick_params(labelbottom=False)
 
-    worst = 1.0
-    for n, c in enumerate(contacts):
+    # residuals: the scale follows the used contacts; far-off rejected ones are pinned to the edge
+    span = 0.5
+    for c in contacts:
+        if c.get("residual_nm") is not None and c.get("used", True):
+            span = max(span, abs(c["residual_nm"]) + (c.get("sigma_nm") or 0.0))
+    span *= 1.25
+    for c in contacts:
         if c.get("residual_nm") is None:
             continue
         used = c.get("used", True)
-        colour = COLOURS[n % len(COLOURS)] if used else REJECTED
-        ax2.errorbar([when(c["utc"])], [c["residual_nm"]], yerr=[c.get("sigma_nm") or 0.0], marker="o" if used else "X",
-                     ms=6, color=colour, capsize=3, lw=1.2, ls="none")
-        ax2.annotate(c.get("image") or "?", (when(c["utc"]), c["residual_nm"]), textcoords="offset points",
-                     xytext=(5, 4), fontsize=7, color=colour)
-        worst = max(worst, abs(c["residual_nm"]) + (c.get("sigma_nm") or 0.0))
+        colour = image_colour(c.get("image")) if used else REJECTED
+        r = c["residual_nm"]
+        x = when(c["utc"])
+        if abs(r) > span:
+            y = span * 0.92 * (1 if r > 0 else -1)
+            ax2.plot([x], [y], marker="^" if r > 0 else "v", ms=7, color=colour, ls="none")
+            ax2.annotate("%s %+.1f nmi" % (c.get("image") or "?", r), (x, y), textcoords="offset points",
+                         xytext=(6, -3), fontsize=7, color=colour)
+            continue
+        ax2.errorbar([x], [r], yerr=[c.get("sigma_nm") or 0.0], marker="o" if used else "X", ms=5.5, color=colour,
+                     capsize=3, lw=1.1, ls="none")
+        ax2.annotate(c.get("image") or "?", (x, r), textcoords="offset points", xytext=(5, 3), fontsize=7,
+                     color=colour)
     ax2.axhline(0.0, color="k", lw=0.8)
-    ax2.set_ylim(-1.15 * worst, 1.15 * worst)
-    ax2.set_ylabel("residual from fix (nmi, +toward body)", fontsize=9)
+    ax2.set_ylim(-span, span)
+    ax2.set_ylabel("residual from the fix\n(nmi along Zn, + toward the body)", fontsize=8.5)
     ax2.set_xlabel("UTC", fontsize=9)
     ax2.grid(True, alpha=0.3)
     ax2.xaxis.set_major_formatter(DateFormatter("%H:%M"))
     ax2.tick_params(labelsize=8)
-    fig.text(0.5, 0.95, title or "Contact timeline, fix at %s" % fix["utc"], ha="center", fontsize=11.5,
+    fig.text(0.5, 0.955, title or "Contact timeline, fix at %s" % fix["utc"], ha="center", fontsize=11.5,
              fontweight="bold")
-    fig.text(0.5, 0.92, "upper: predicted and timed contacts per image; lower: residuals with 1-sigma bars",
-             ha="center", fontsize=8.5, color="0.25")
+    fig.text(0.5, 0.925, "upper: predicted and timed contacts per image; lower: each line's offset from the fix "
+             "with its 1-sigma bar", ha="center", fontsize=8.5, color="0.25")
     _cautions(fig)
     return _save(fig, path)

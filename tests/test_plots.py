@@ -32,7 +32,7 @@ def png_size(path):
 def test_plotting_sheet_png_and_svg(tmp_path):
     png = plots.plotting_sheet(FIX_FULL, str(tmp_path / "sheet.png"), track=TRACK, truth=(41.31, -9.86))
     w, h = png_size(png)
-    assert (w, h) == (round(8.2 * 110), round(8.6 * 110))
+    assert (w, h) == (round(8.2 * 110), round(9.4 * 110))
     assert (tmp_path / "sheet.png").stat().st_size > 20000     # a drawn chart, not an empty canvas
     svg = plots.plotting_sheet(FIX_FULL, str(tmp_path / "sheet.svg"), track=TRACK)
     root = ET.parse(svg).getroot()
