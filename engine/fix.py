@@ -72,6 +72,7 @@ REJECT_W = 3.0                     # |w| above which the worst contact is droppe
 MAX_OFFSET_VIF = 10.0              # largest variance inflation of the offset that is still "estimable"
 MAX_STEP_NM = 60.0
 MAX_ITERATIONS = 40
+MAX_LAT_DEG = 89.0
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
 PRESCREEN_K = 5.0                  # robust first pass: gross blunders beyond 5 robust sigma are dropped
 DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 1.0,
@@ -128,14 +129,84 @@ def _median(xs):
     return v[n // 2] if n % 2 else 0.5 * (v[n // 2 - 1] + v[n // 2])
 
 
-def _huber_weights(use):
-    """Diagonal weight matrix 1/(sigma^2 max(1, |p|/(k sigma))) (Huber 1964, IRLS form)."""
-    n = len(use)
-    W = [[0.0] * n for _ in range(n)]
+def _huber_factor(use):
+    """Diagonal "Cholesky factor" (a list of floats) of the Huber-reweighted variances
+    sigma^2 max(1, |p|/(k sigma)) (Huber 1964, in the iteratively reweighted form)."""
+    return [ln.sigma_nm * math.sqrt(max(1.0, abs(ln.p) / (HUBER_K * ln.sigma_nm))) for ln in use]
+
+
+# Small dense linear algebra on lists, in O(n^2) memory for a board's heap: the covariance
+# S is never stored, only its Cholesky factor L (row i holds L[i][0..i]).  A diagonal
+# factor is a plain list of floats.
+
+def _cholesky(items, cov):
+    """Lower-triangular L with L L^T = S, S[i][j] = cov(items[i], items[j], i == j);
+    None when S is not positive definite (Cholesky-Banachiewicz)."""
+    L = []
+    for i in range(len(items)):
+        row = [0.0] * (i + 1)
+        for j in range(i + 1):
+            s = cov(items[i], items[j], i == j)
+            lj = L[j] if j < i else row
+            for k in range(j):
+                s -= row[k] * lj[k]
+            if i == j:
+                if s <= 0.0:
+                    return None
+                row[i] = math.sqrt(s)
+            else:
+                row[j] = s / lj[j]
+        L.append(row)
+    return L
+
+
+def _forward(L, v):
+    """y with L y = v."""
+    if isinstance(L[0], float):
+        return [x / d for x, d in zip(v, L)]
+    y = []
+    for i, row in enumerate(L):
+        s = v[i]
+        for k in range(i):
+            s -= row[k] * y[k]
+        y.append(s / row[i])
+    return y
+
+
+def _backward(L, y):
+    """x with L^T x = y."""
+    if isinstance(L[0], float):
+        return [x / d for x, d in zip(y, L)]
+    n = len(L)
+    x = [0.0] * n
+    for i in range(n - 1, -1, -1):
+        s = y[i]
+        for k in range(i + 1, n):
+            s -= L[k][i] * x[k]
+        x[i] = s / L[i][i]
+    return x
+
+
+def _inverse_diagonal(L):
+    """Diagonal of S^-1 = L^-T L^-1: the squared norms of the columns of L^-1."""
+    n = len(L)
+    out = []
     for i in range(n):
-        s = use[i].sigma_nm
-        W[i][i] = 1.0 / (s * s * max(1.0, abs(use[i].p) / (HUBER_K * s)))
-    return W
+        z = {i: 1.0 / L[i][i]}
+        total = z[i] * z[i]
+        for r in range(i + 1, n):
+            row = L[r]
+            s = 0.0
+            for k in range(i, r):
+                s -= row[k] * z[k]
+            z[r] = s / row[r]
+            total += z[r] * z[r]
+        out.append(total)
+    return out
+
+
+def _dot(a, b):
+    return sum(x * y for x, y in zip(a, b))
 
 
 def _mat_vec(m, v):
@@ -201,24 +272,29 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
     for iid, _, s in session.images:
         sig_img[iid] = s if s is not None else opt["sigma_image_arcmin"]
 
-    def covariance(use):
-        n = len(use)
-        S = [[0.0] * n for _ in range(n)]
-        for i in range(n):
-            a = use[i]
-            for j in range(i, n):
-                b = use[j]
-                v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * a.refr * b.refr + \
-                    tb_sigma * tb_sigma * a.rate * b.rate
-                if a.group == b.group:
-                    v += sig_img[a.group] ** 2
-                if i == j:
-                    v += a.var_ind
-                S[i][j] = v
-                S[j][i] = v
-        for i in range(n):
-            use[i].sigma_nm = math.sqrt(S[i][i])
-        return S
+    def cov(a, b, same):
+        v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * a.refr * b.refr + tb_sigma * tb_sigma * a.rate * b.rate
+        if a.group == b.group:
+            v += sig_img[a.group] ** 2
+        if same:
+            v += a.var_ind
+        return v
+
+    chol_cache = {}
+
+    def factor(use):
+        """Cholesky factor of the a-priori covariance of the lines in ``use`` (cached)."""
+        key = tuple(ln.c.index for ln in use)
+        if key not in chol_cache:
+            L = _cholesky(use, cov)
+            if L is None:
+                raise FixError("the error model's covariance is not positive definite")
+            chol_cache.clear()
+            chol_cache[key] = L
+        return chol_cache[key]
+
+    for ln in lines:
+        ln.sigma_nm = math.sqrt(cov(ln, ln, True))
 
     def evaluate(use, lat_e, lon_e, bias):
         for ln in use:
@@ -228,37 +304,37 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
             ln.ho, ln.hc, ln.zn, ln.lat, ln.lon = ho, hc, zn, lat, lon
             ln.p = (ho - hc) * 60.0
 
-    def normal(use, W, with_bias):
-        u = 3 if with_bias else 2
-        A = [[cosd(ln.zn), sind(ln.zn), -1.0][:u] for ln in use]
-        n = len(use)
-        WA = [[sum(W[i][k] * A[k][c] for k in range(n)) for c in range(u)] for i in range(n)]
-        N = [[sum(A[k][r] * WA[k][c] for k in range(n)) for c in range(u)] for r in range(u)]
-        return A, WA, N
+    def normal(use, L, with_bias):
+        """Whitened design columns At (L^-1 A), whitened intercepts pt, normal matrix N, right side."""
+        cols = [[cosd(ln.zn) for ln in use], [sind(ln.zn) for ln in use]]
+        if with_bias:
+            cols.append([-1.0] * len(use))
+        At = [_forward(L, col) for col in cols]
+        pt = _forward(L, [ln.p for ln in use])
+        N = [[_dot(r, c) for c in At] for r in At]
+        return At, pt, N, [_dot(r, pt) for r in At]
 
     def solve(use, lat_e, lon_e, bias, with_bias, huber=False):
         """Gauss-Newton to convergence; with ``huber`` iteratively reweighted
         (diagonal model, Huber weights) for the robust first pass."""
-        W = None if huber else invert(covariance(use))
-        if not huber and W is None:
-            raise FixError("the error model's covariance is singular")
+        L = None if huber else factor(use)
         its = 0
-        Ninv = None
         converged = False
         for its in range(1, MAX_ITERATIONS + 1):
             evaluate(use, lat_e, lon_e, bias)
             if huber:
-                W = _huber_weights(use)
-            A, WA, N = normal(use, W, with_bias)
+                L = _huber_factor(use)
+            At, pt, N, rhs = normal(use, L, with_bias)
             Ninv = invert(N)
             if Ninv is None:
                 raise FixError("the lines of position do not cross (azimuths too alike): no fix")
-            rhs = [sum(WA[k][c] * use[k].p for k in range(len(use))) for c in range(len(N))]
             dx = _mat_vec(Ninv, rhs)
             step = math.sqrt(dx[0] ** 2 + dx[1] ** 2)
             if step > MAX_STEP_NM:
                 dx = [v * MAX_STEP_NM / step for v in dx]
             lat_e, lon_e = move_nm(lat_e, lon_e, dx[0], dx[1])
+            if lat_e > MAX_LAT_DEG or lat_e < -MAX_LAT_DEG:
+                raise FixError("the fix ran off toward a pole: the contacts do not fit the track")
             if with_bias:
                 bias += dx[2]
             if step < 1e-4 and (not with_bias or abs(dx[2]) < 1e-4):
@@ -268,12 +344,12 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
             warnings.append("the fix did not converge in %d iterations" % MAX_ITERATIONS)
         evaluate(use, lat_e, lon_e, bias)
         if huber:
-            W = _huber_weights(use)
-        A, WA, N = normal(use, W, with_bias)
+            L = _huber_factor(use)
+        At, pt, N, rhs = normal(use, L, with_bias)
         Ninv = invert(N)
         if Ninv is None:
             raise FixError("the lines of position do not cross (azimuths too alike): no fix")
-        return lat_e, lon_e, bias, W, A, WA, N, Ninv, its
+        return lat_e, lon_e, bias, L, At, pt, Ninv, its
 
     def offset_estimable(use):
         if deviation_offset is False or len(use) < 4:
@@ -281,10 +357,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
         if deviation_offset is True:
             return True
         evaluate(use, dr_lat, dr_lon, 0.0)
-        W = invert(covariance(use))
-        if W is None:
-            return False
-        _, _, N = normal(use, W, True)
+        _, _, N, _ = normal(use, factor(use), True)
         Ninv = invert(N)
         return Ninv is not None and Ninv[2][2] * N[2][2] <= MAX_OFFSET_VIF
 
@@ -294,12 +367,10 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
     rejected_reason = {}
     lat_e, lon_e, bias = dr_lat, dr_lon, 0.0
     iterations = 0
-    covariance(use)                                  # a-priori sigma of every line
     # robust first pass: Huber IRLS, dropping gross blunders (> PRESCREEN_K robust sigma) one at a time
     while len(use) > 3:
         with_bias = offset_estimable(use)
-        lat_e, lon_e, bias, _, _, _, _, _, its = solve(use, lat_e, lon_e, bias if with_bias else 0.0,
-                                                       with_bias, True)
+        lat_e, lon_e, bias, _, _, _, _, its = solve(use, lat_e, lon_e, bias if with_bias else 0.0, with_bias, True)
         iterations += its
         ratios = [abs(ln.p) / ln.sigma_nm for ln in use]
         scale = max(1.0, 1.4826 * _median(ratios))
@@ -308,25 +379,26 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
             break
         bad = use.pop(worst)
         rejected_reason[bad.c.index] = (bad, ratios[worst] / scale)
+    # least squares with the full error model, then Baarda's data snooping
     while True:
         with_bias = offset_estimable(use)
         if not with_bias:
             bias = 0.0
-        lat_e, lon_e, bias, W, A, WA, N, Ninv, its = solve(use, lat_e, lon_e, bias, with_bias)
+        lat_e, lon_e, bias, L, At, pt, Ninv, its = solve(use, lat_e, lon_e, bias, with_bias)
         iterations += its
-        n, u = len(use), len(N)
-        e = [ln.p for ln in use]                     # residuals at the converged solution
-        g = _mat_vec(W, e)
-        q = sum(a * b for a, b in zip(e, g))
+        n, u = len(use), len(Ninv)
         dof = n - u
-        s0 = math.sqrt(q / dof) if dof > 0 else 0.0
+        s0 = math.sqrt(_dot(pt, pt) / dof) if dof > 0 else 0.0      # e' S^-1 e = |L^-1 e|^2
         if dof < 1:
             break
+        g = _backward(L, pt)                                      # S^-1 e
+        B = [_backward(L, col) for col in At]                    # columns of S^-1 A
+        sinv_diag = _inverse_diagonal(L)
         worst, worst_w = -1, 0.0
         for i in range(n):
-            bi = WA[i]
-            m_ii = W[i][i] - sum(bi[r] * sum(Ninv[r][c] * bi[c] for c in range(u)) for r in range(u))
-            if m_ii <= 1e-12 * W[i][i]:
+            bi = [B[r][i] for r in range(u)]
+            m_ii = sinv_diag[i] - sum(bi[r] * sum(Ninv[r][c] * bi[c] for c in range(u)) for r in range(u))
+            if m_ii <= 1e-9 * sinv_diag[i]:
                 continue
             w = g[i] / math.sqrt(m_ii)
             if abs(w) > abs(worst_w):

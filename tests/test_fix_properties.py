@@ -118,3 +118,45 @@ def test_ellipse_grows_with_noisy_contacts():
     assert noisy["ellipse_95"]["major_nm"] > clean["ellipse_95"]["major_nm"]
     err = distance_nm(noisy["lat_deg"], noisy["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"])
     assert err < 2.0 * noisy["ellipse_95"]["major_nm"]
+
+
+def test_linear_algebra_against_numpy():
+    # the fix keeps only a Cholesky factor (board heap); check it and its solves against numpy.linalg
+    import numpy as np
+    rng = np.random.default_rng(4)
+    a = rng.normal(size=(9, 9))
+    s = a @ a.T + 9 * np.eye(9)
+    L = fix._cholesky(list(range(9)), lambda i, j, same: float(s[i, j]))
+    dense = np.zeros((9, 9))
+    for i, row in enumerate(L):
+        dense[i, :i + 1] = row
+    assert np.allclose(dense, np.linalg.cholesky(s), atol=1e-12)
+    v = rng.normal(size=9)
+    assert np.allclose(fix._backward(L, fix._forward(L, list(v))), np.linalg.solve(s, v), atol=1e-12)
+    assert np.allclose(fix._inverse_diagonal(L), np.diag(np.linalg.inv(s)), atol=1e-12)
+    assert fix._cholesky([0, 1], lambda i, j, same: 1.0) is None          # singular: not positive definite
+
+
+_T0 = 1798761600 * 1000000      # 2027-01-01T00:00:00Z
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.integers(0, 8 * 365 * 86400), st.floats(-89, 89), st.floats(-180, 359), st.floats(0, 360),
+       st.floats(0, 60), st.lists(st.tuples(st.integers(-86400, 86400), st.sampled_from(["sun", "moon"]),
+                                           st.sampled_from(["lower", "upper"]), st.integers(0, 3)),
+                                 min_size=1, max_size=8),
+       st.lists(st.floats(0.5, 89), min_size=3, max_size=3), st.sampled_from(["auto", True, False]))
+def test_any_valid_session_gives_a_fix_or_a_clear_error(day_s, lat, lon, course, speed, cs, devs, mode):
+    from engine.timescale import format_utc
+    t0 = _T0 + day_s * 1000000
+    d = {"format": "limbclock-session/1", "observer": {"eye_height_m": 2.0},
+         "instrument": {"images": [{"id": "k%d" % i, "deviation_deg": v} for i, v in enumerate(devs)]},
+         "track": {"utc": format_utc(t0), "lat_deg": lat, "lon_deg": lon, "course_deg": course, "speed_kn": speed},
+         "contacts": [{"utc": format_utc(t0 + dt * 1000000), "body": b, "limb": lb,
+                       "image": None if k == 3 else "k%d" % k} for dt, b, lb, k in cs]}
+    try:
+        r = engine.reduce_session(json.dumps(d), ALM, deviation_offset=mode)
+    except ValueError as e:          # SessionError, FixError, AlmanacError: one clear line
+        assert str(e)
+        return
+    assert -90.0 <= r["lat_deg"] <= 90.0 and math.isfinite(r["ellipse_95"]["major_nm"])
