@@ -110,8 +110,8 @@ def bench_identification(doc, alm):
     from engine.session import parse_session
     print("-- identification: 5 unlabelled contacts, timing noise 0.25 s, DR off by E nmi (random bearing)")
     rnd = random.Random(5)
-    print("  DR error nmi  sessions  all correct  ambiguous (no guess)  wrong   ms/session")
-    for err in (0, 10, 30, 60, 100):
+    print("  DR error nmi  sigma_DR told  sessions  all correct  ambiguous (no guess)  wrong   ms/session")
+    for err, told in ((0, 30), (10, 30), (30, 30), (60, 30), (100, 30), (60, 60), (100, 100), (200, 200)):
         ok = amb = wrong = 0
         t_tot = 0.0
         n = 0
@@ -124,7 +124,7 @@ def bench_identification(doc, alm):
                 text = _session(s, doc["images"], pick, 0.0, 0.25, rnd, False, err * math.cos(b), err * math.sin(b),
                                 labelled=False)
                 a = time.perf_counter()
-                r = identify.identify(parse_session(text), alm)
+                r = identify.identify(parse_session(text), alm, float(told))
                 t_tot += time.perf_counter() - a
                 n += 1
                 got = [c["image"] for c in r["contacts"]]
@@ -135,8 +135,8 @@ def bench_identification(doc, alm):
                     amb += 1
                 else:
                     wrong += 1
-        print("  %12d  %8d  %10.0f%%  %19.0f%%  %4.0f%%  %10.0f" % (err, n, 100.0 * ok / n, 100.0 * amb / n,
-                                                                  100.0 * wrong / n, 1000 * t_tot / n))
+        print("  %12d  %13d  %8d  %10.0f%%  %19.0f%%  %4.0f%%  %10.0f" % (
+            err, told, n, 100.0 * ok / n, 100.0 * amb / n, 100.0 * wrong / n, 1000 * t_tot / n))
 
 
 def bench_ladder():

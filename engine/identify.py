@@ -19,7 +19,9 @@ Method (one scheme for a good and a poor DR):
    azimuths) is what makes one position fit them all; the DR enters as a
    prior (offset / sigma_DR)^2.
 2. Each distinct assignment is scored at its best grid point,
-   cost = sum ((Hs_i - D_i) / sigma_i)^2 + |offset|^2 / sigma_DR^2, and the best
+   cost = sum (Hs_i - D_i)^2 / (sigma_i^2 + (step/2)^2) + |offset|^2 / sigma_DR^2
+   (the half step allows for the grid point's distance from the assignment's
+   best position), and the best
    few are refined by Gauss-Newton in position (intercepts and azimuths of
    ``model.contact_residual_arcmin``: a small least-squares fix with the DR
    prior), then re-assigned to the nearest images at the refined position and
@@ -54,7 +56,7 @@ DEFAULT_IMAGE_SIGMA_ARCMIN = 2.0
 DEFAULT_TIME_SIGMA_S = 0.25
 DEFAULT_CONFIDENCE = 0.99
 MAX_GRID_POINTS = 1600
-REFINE_TOP = 6
+REFINE_TOP = 8
 
 
 class IdentifyError(ValueError):
@@ -111,8 +113,10 @@ def _setup(session, alm, dr_sigma_nm):
     return p
 
 
-def _assign_at(p, positions):
-    """(assignment tuple, cost without prior) for contacts at the given positions."""
+def _assign_at(p, positions, slack_nm=0.0):
+    """(assignment tuple, cost without prior) for contacts at the given positions; ``slack_nm``
+    (half the grid step) is added in quadrature to each sigma, so that a grid point a few miles
+    from an assignment's best position does not score it out."""
     devs = [im[1] for im in p.images]
     assign = []
     cost = 0.0
@@ -126,8 +130,8 @@ def _assign_at(p, positions):
             j = _nearest(devs, hs)
             dev = devs[j]
             assign.append(p.images[j][0])
-        e = (hs - dev) * 60.0 / p.sig[k]
-        cost += e * e
+        e = (hs - dev) * 60.0
+        cost += e * e / (p.sig[k] * p.sig[k] + slack_nm * slack_nm)
     return tuple(assign), cost
 
 
@@ -205,11 +209,11 @@ def _hypotheses(p, radius_nm, step_nm=None):
     spacing = _min_spacing_arcmin(p.images)
     if step_nm is None:
         step_nm = min(30.0, max(5.0, spacing / 3.0))
-    pts, _ = _grid(radius_nm, step_nm)
+    pts, step_nm = _grid(radius_nm, step_nm)
     w0 = 1.0 / (p.dr_sigma * p.dr_sigma)
     best = {}
     for north, east in pts:
-        assign, cost = _assign_at(p, _offset_positions(p, north, east))
+        assign, cost = _assign_at(p, _offset_positions(p, north, east), 0.5 * step_nm)
         cost += (north * north + east * east) * w0
         if assign not in best or cost < best[assign][0]:
             best[assign] = (cost, north, east)
