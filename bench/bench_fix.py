@@ -14,7 +14,8 @@ Monte Carlo of the error ellipse's honesty.
    N(0, 5 %) per session; the one-sided loss of a yawed instrument, yaw N(0, 2 deg) per contact
    (``engine.instrument.yaw_loss_arcmin``; the session declares ``yaw_sigma_deg`` 2); a personal
    reaction bias U(0.1, 0.3) s late, calibrated with an error N(0, 0.05 s), and a reaction scatter
-   sigma U(0.2, 0.3) s per contact.  DR 20-60 nmi off, random waters, dates 2027-2035, 6-20
+   sigma U(0.2, 0.3) s per contact; the DR's velocity off by N(0, 0.3 kn) per component (current).
+   DR 20-60 nmi off, random waters, dates 2027-2035, 6-20
    contacts: morning Sun only, Sun rising and setting, or Sun and Moon.  The accuracy claims against
    the truth rest on part 1; part 3 measures whether the 95 % ellipse holds 95 % of the truths.
 """
@@ -175,6 +176,10 @@ def _simulate(alm, rnd, images):
         t_true = p.t_us + int(delta / p.rate_arcmin_per_s * 1e6)
         t_obs = t_true + int((bias_s + rnd.gauss(0.0, scatter_s)) * 1e6)
         contacts.append({"utc": timescale.format_utc(t_obs, 3), "body": p.body, "limb": p.limb, "image": p.image})
+    # the DR's velocity is off by the unknown current: N(0, 0.3 kn) per component
+    vn = speed_kn * math.cos(math.radians(course)) + rnd.gauss(0.0, 0.3)
+    ve = speed_kn * math.sin(math.radians(course)) + rnd.gauss(0.0, 0.3)
+    dr_course, dr_speed = math.degrees(math.atan2(ve, vn)) % 360.0, math.hypot(vn, ve)
     bearing, dist = rnd.uniform(0, 360), rnd.uniform(20, 60)
     dr_lat, dr_lon = move_nm(lat, lon, dist * math.cos(math.radians(bearing)), dist * math.sin(math.radians(bearing)))
     d = {"format": "limbclock-session/1",
@@ -182,7 +187,7 @@ def _simulate(alm, rnd, images):
          "instrument": {"images": [{"id": i, "deviation_deg": dv} for i, dv, _ in images],
                         "reaction_delay_s": bias_s + rnd.gauss(0.0, 0.05), "reaction_delay_sigma_s": 0.05},
          "track": {"utc": timescale.format_utc(t_from), "lat_deg": dr_lat, "lon_deg": dr_lon,
-                   "course_deg": course, "speed_kn": speed_kn},
+                   "course_deg": dr_course, "speed_kn": dr_speed},
          "contacts": contacts}
     return kind, d, truth
 

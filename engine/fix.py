@@ -26,6 +26,10 @@ largest errors are shared between contacts):
   an arcminute are common), shared by all contacts;
 * refraction anomaly: one scale error kappa (default 0.05) of the whole
   atmosphere, covariance kappa^2 R_i R_j;
+* the DR's course and speed (current, leeway, log error): a velocity error of
+  ``velocity_sigma_kn`` (default 0.3 kn per component; ``track.velocity_sigma_kn``
+  of the session; 0 for a known track) moves the line of a contact taken dt
+  before the epoch by dv dt along Zn: covariance sigma_v^2 dt_i dt_j cos(Zn_i - Zn_j);
 * yaw (instrument turned off the body's azimuth by psi, sigma
   ``observer.yaw_sigma_deg`` of the session, default 0: the observer swings the
   arc): the contact comes late by a one-sided loss; its mean is taken off the
@@ -76,7 +80,7 @@ MAX_LAT_DEG = 89.0
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
 PRESCREEN_K = 5.0                  # robust first pass: gross blunders beyond 5 robust sigma are dropped
 DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 1.0,
-            "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0}
+            "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0, "velocity_sigma_kn": 0.3}
 
 
 class FixError(ValueError):
@@ -112,7 +116,7 @@ def ellipse(cnn, cne, cee, k2):
 
 class _Line:
     """Working data of one usable contact."""
-    __slots__ = ("c", "dev_deg", "t_us", "group", "rate", "refr", "var_ind", "sigma_nm", "ho", "hc", "zn",
+    __slots__ = ("c", "dev_deg", "t_us", "group", "rate", "refr", "var_ind", "vn", "ve", "sigma_nm", "ho", "hc", "zn",
                  "p", "p_dr", "lat", "lon", "hc_dr")
 
 
@@ -262,6 +266,9 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
         lat, lon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
         _, rate = sextant_altitude_deg(alm, c.body, c.limb, ln.t_us, lat, lon, obs, dut1_us)
         ln.rate = rate * 60.0                                         # arcmin/s
+        zn0 = contact_terms(alm, c.body, c.limb, dev, ln.t_us, lat, lon, obs, dut1_us)[2]
+        dt_h = (ln.t_us - epoch) / 3.6e9
+        ln.vn, ln.ve = cosd(zn0) * dt_h, sind(zn0) * dt_h             # LOP shift per knot of velocity error
         ha = dev - dip_arcmin(obs.eye_height_m) / 60.0
         ln.refr = refraction_arcmin(ha, obs.temperature_c, obs.pressure_hpa)
         st2 = opt["sigma_time_s"] ** 2 + c.sigma_s ** 2
@@ -272,8 +279,11 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, opti
     for iid, _, s in session.images:
         sig_img[iid] = s if s is not None else opt["sigma_image_arcmin"]
 
+    vel_sigma = 0.0 if tr.known else _num_extra(session.track_extra, "velocity_sigma_kn", opt["velocity_sigma_kn"])
+
     def cov(a, b, same):
-        v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * a.refr * b.refr + tb_sigma * tb_sigma * a.rate * b.rate
+        v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * a.refr * b.refr + \
+            tb_sigma * tb_sigma * a.rate * b.rate + vel_sigma * vel_sigma * (a.vn * b.vn + a.ve * b.ve)
         if a.group == b.group:
             v += sig_img[a.group] ** 2
         if same:

@@ -64,7 +64,8 @@ def format_fix(r):
         status = "used" if c["used"] else "REJECTED: %s" % c["reason"]
         out.append("  %3d %-12s %-4s %-5s %-5s %8s %8s %6.1f %+8.2f %+8.2f %5.2f  %s %s"
                    % (c["index"], t, c["body"], c["limb"], c["image"], _dm(c["ho_deg"]), _dm(c["hc_deg"]),
-                      c["zn_deg"], c["intercept_nm"], c["residual_nm"], c["sigma_nm"], c["direction"], status))
+                      c["zn_deg"], _r2(c["intercept_nm"]), _r2(c["residual_nm"]), c["sigma_nm"], c["direction"],
+                      status))
     if r["warnings"]:
         out.append("")
         for w in r["warnings"]:
@@ -72,6 +73,10 @@ def format_fix(r):
     out.append("")
     out.extend(CAUTION_LINES)
     return out
+
+
+def _r2(x):
+    return round(x, 2) + 0.0      # no "-0.00"
 
 
 def _dm(a_deg):

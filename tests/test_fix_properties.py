@@ -105,14 +105,14 @@ def test_too_few_contacts_and_unidentified():
 
 
 def test_ellipse_grows_with_noisy_contacts():
-    # 3' of extra scatter in altitude: s0 rises above 1 and the ellipse follows it
+    # several arcminutes of extra scatter in altitude: s0 rises above 1 and the ellipse follows it
     import random
     d = json.loads(json.dumps(DOCS["sun_moon"]))
     clean = engine.reduce_session(json.dumps(d), ALM)
     rnd = random.Random(5)
     from engine.timescale import parse_utc, format_utc
     for c in d["contacts"]:
-        c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 12.0) * 1e6))   # 12 s ~ 2-3'
+        c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 20.0) * 1e6))   # 20 s ~ 3-4'
     noisy = engine.reduce_session(json.dumps(d), ALM)
     assert noisy["sigma0"] > 1.0
     assert noisy["ellipse_95"]["major_nm"] > clean["ellipse_95"]["major_nm"]
