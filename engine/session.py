@@ -16,7 +16,9 @@ Optional keys with defaults: ``observer.temperature_c`` (10), ``observer.pressur
 ``observer.yaw_sigma_deg`` (how far, 1 sigma, the observer holds the instrument
 turned off the body's azimuth; default 0: swinging the arc, or calibrated away),
 ``instrument.reaction_delay_s`` and ``instrument.reaction_delay_sigma_s`` (the
-calibrated personal equation, as in ``limbclock-instrument/1`` files).
+calibrated personal equation, as in ``limbclock-instrument/1`` files; null = not
+calibrated), ``track.velocity_sigma_kn`` (uncertainty of the DR's course and speed,
+per component; the fix's default 0.3 kn).
 """
 import json
 
@@ -253,6 +255,8 @@ def session_from_dict(data, alm=None):
     for key in tr:
         if key not in ("utc", "lat_deg", "lon_deg", "course_deg", "speed_kn", "known"):
             track_extra[key] = tr[key]
+    if tr.get("velocity_sigma_kn") is not None:
+        track_extra["velocity_sigma_kn"] = _number(tr, "velocity_sigma_kn", "track", 0.0, 10.0)
 
     if "contacts" not in data:
         raise SessionError("contacts: missing (a list of contacts is required)")
@@ -297,6 +301,10 @@ def session_from_dict(data, alm=None):
     for key in inst:
         if key != "images":
             inst_extra[key] = inst[key]
+    if inst.get("reaction_delay_s") is not None:
+        inst_extra["reaction_delay_s"] = _number(inst, "reaction_delay_s", "instrument", -2.0, 2.0)
+    if inst.get("reaction_delay_sigma_s") is not None:
+        inst_extra["reaction_delay_sigma_s"] = _number(inst, "reaction_delay_sigma_s", "instrument", 0.0, 2.0)
     return Session(observer, images, track, contacts, extra, inst_extra, image_extra, observer_extra,
                    track_extra)
 
