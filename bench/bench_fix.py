@@ -220,11 +220,12 @@ def monte_carlo(alm, n=N_MONTE_CARLO, seed=2031):
         epoch = timescale.parse_utc(r["utc"])
         tl, tn = truth.position_at(epoch)
         rows.append((kind, distance_nm(r["lat_deg"], r["lon_deg"], tl, tn), _inside(r, tl, tn),
-                     len(r["rejected"]), r["ellipse_95"]["major_nm"], r["deviation_offset_estimated"]))
+                     len(r["rejected"]), r["ellipse_95"]["major_nm"], r["deviation_offset_estimated"],
+                     len(r["contacts"])))
     dt = time.perf_counter() - t0
     print("   %d sessions in %.1f s (%d drawn, windows with too few contacts redrawn)" % (n, dt, tried))
-    print("   %-11s %5s %10s %10s %12s %10s %9s" % ("kind", "n", "median nm", "p95 nm", "in 95% ell", "median a",
-                                                  "rejected"))
+    print("   %-11s %5s %10s %10s %12s %10s %14s" % ("kind", "n", "median nm", "p95 nm", "in 95% ell", "median a",
+                                                   "rejected"))
     for kind in ("morning", "both_sides", "sun_moon", "all"):
         sel = [x for x in rows if kind == "all" or x[0] == kind]
         if not sel:
@@ -232,9 +233,12 @@ def monte_carlo(alm, n=N_MONTE_CARLO, seed=2031):
         err = np.array([x[1] for x in sel])
         inside = np.mean([x[2] <= 1.0 for x in sel])
         rej = sum(x[3] for x in sel)
-        print("   %-11s %5d %10.2f %10.2f %11.1f%% %10.2f %9d" % (kind, len(sel), np.median(err),
-                                                               np.percentile(err, 95), 100 * inside,
-                                                               np.median([x[4] for x in sel]), rej))
+        n_c = sum(x[6] for x in sel)
+        print("   %-11s %5d %10.2f %10.2f %11.1f%% %10.2f %5d/%d" % (kind, len(sel), np.median(err),
+                                                                   np.percentile(err, 95), 100 * inside,
+                                                                   np.median([x[4] for x in sel]), rej, n_c))
+    print("   (median a: median semi-major axis of the 95 %% ellipse; rejected: contacts dropped as blunders /"
+          " contacts - no blunders were simulated, so these are the yaw tail and false alarms)")
     est = [x for x in rows if x[5]]
     if est:
         print("   deviation offset estimated in %d sessions; truth inside the ellipse there: %.1f%%"
