@@ -237,7 +237,7 @@ def monte_carlo(alm, n=N_MONTE_CARLO, seed=2031):
         print("   %-11s %5d %10.2f %10.2f %11.1f%% %10.2f %5d/%d" % (kind, len(sel), np.median(err),
                                                                    np.percentile(err, 95), 100 * inside,
                                                                    np.median([x[4] for x in sel]), rej, n_c))
-    print("   (median a: median semi-major axis of the 95 %% ellipse; rejected: contacts dropped as blunders /"
+    print("   (median a: median semi-major axis of the 95 % ellipse; rejected: contacts dropped as blunders /"
           " contacts - no blunders were simulated, so these are the yaw tail and false alarms)")
     est = [x for x in rows if x[5]]
     if est:
