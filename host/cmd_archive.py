@@ -215,15 +215,18 @@ def fix_session(conn, session_id, at_utc=None):
     return archive.store_fix(conn, session_id, result), result
 
 
-def print_fix(result, out=sys.stdout):
+def print_fix(result, out=None, indent=""):
+    out = out or sys.stdout
     e = result.get("ellipse_95") or {}
-    print("fix at %s  %s  %s" % (result["utc"], fmt_lat(result["lat_deg"], 2), fmt_lon(result["lon_deg"], 2)), file=out)
+    lines = ["fix at %s  %s  %s" % (result["utc"], fmt_lat(result["lat_deg"], 2), fmt_lon(result["lon_deg"], 2))]
     if e:
-        print("95%% ellipse %.2f x %.2f nmi, major axis %03.0f T" % (e["major_nm"], e["minor_nm"], e["major_axis_deg"]),
-              file=out)
-    print("contacts used %s, rejected %s" % (result.get("contacts_used"), result.get("rejected") or "none"), file=out)
-    for w in result.get("warnings") or []:
-        print("warning: %s" % w, file=out)
+        lines.append("95%% ellipse %.2f x %.2f nmi, major axis %03.0f T" % (e["major_nm"], e["minor_nm"],
+                                                                         e["major_axis_deg"]))
+    lines.append("contacts used %s, rejected %s" % (result.get("contacts_used"),
+                                                    ", ".join(str(i) for i in result.get("rejected") or []) or "none"))
+    lines += ["warning: %s" % w for w in result.get("warnings") or []]
+    for line in lines:
+        print(indent + line, file=out)
 
 
 def run_fix(args):

@@ -237,7 +237,7 @@ def run(out_dir="demo-out", quiet=False):
     true_lat, true_lon = truth_at(t_fix)
     err_nm = sphere.distance_nm(result["lat_deg"], result["lon_deg"], true_lat, true_lon)
     inside = _inside_ellipse(result, true_lat, true_lon)
-    print_fix(result)
+    print_fix(result, indent="  ")
     dr = result.get("dr") or {}
     dr_err = sphere.distance_nm(dr["lat_deg"], dr["lon_deg"], true_lat, true_lon) if dr else None
     images = result.get("images") or []
