@@ -217,13 +217,16 @@ def _mat_vec(m, v):
     return [sum(a * b for a, b in zip(row, v)) for row in m]
 
 
-def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=0, options=None):
+def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, options=None):
     """Fix of a validated Session (``engine.session``) with almanac ``alm``.
 
     ``at_us``: fix epoch (default: the last contact's instant).
     ``deviation_offset``: "auto" (estimate when estimable), True, False.
+    ``dut1_us``: UT1 - UTC (default: the session's ``dut1_s``, else 0).
     ``options``: overrides of ``DEFAULTS`` (error model).
     Returns the ``limbclock-fix/1`` dict (see DEVELOPERS.md).  Raises FixError."""
+    if dut1_us is None:
+        dut1_us = int(round(_num_extra(session.extra, "dut1_s", 0.0) * 1e6))
     opt = dict(DEFAULTS)
     if "yaw_sigma_deg" in session.observer_extra:
         opt["yaw_sigma_deg"] = session.observer_extra["yaw_sigma_deg"]

@@ -18,7 +18,8 @@ turned off the body's azimuth; default 0: swinging the arc, or calibrated away),
 ``instrument.reaction_delay_s`` and ``instrument.reaction_delay_sigma_s`` (the
 calibrated personal equation, as in ``limbclock-instrument/1`` files; null = not
 calibrated), ``track.velocity_sigma_kn`` (uncertainty of the DR's course and speed,
-per component; the fix's default 0.3 kn).
+per component; the fix's default 0.3 kn), ``dut1_s`` (UT1 - UTC, |DUT1| <= 0.9 s as
+broadcast with time signals; default 0, which can cost up to 0.23' of longitude).
 """
 import json
 
@@ -297,6 +298,8 @@ def session_from_dict(data, alm=None):
     for key in data:
         if key not in _TOP_KEYS:
             extra[key] = data[key]
+    if data.get("dut1_s") is not None:
+        extra["dut1_s"] = _number(data, "dut1_s", "session", -0.9, 0.9)
     inst_extra = {}
     for key in inst:
         if key != "images":

@@ -90,3 +90,15 @@ def test_intercepts_point_from_dr_to_fix():
     for c in r["contacts"]:
         along = n * cosd(c["zn_deg"]) + e * sind(c["zn_deg"])
         assert abs(c["intercept_nm"] - c["residual_nm"] - along) < 0.5      # curvature over ~40 nmi
+
+
+def test_dut1_moves_the_fix_west_by_earth_rotation():
+    # UT1 - UTC = +0.5 s: the Earth has turned 0.5 s x 15.041"/s further (sidereal rate, common practice), so
+    # the same altitudes put the ship 7.52" of longitude further west; latitude unchanged
+    d = json.loads(load("station_sun"))
+    base = engine.reduce_session(json.dumps(d), ALM)
+    d["dut1_s"] = 0.5
+    moved = engine.reduce_session(json.dumps(d), ALM)
+    dlon_arcsec = (moved["lon_deg"] - base["lon_deg"]) * 3600.0
+    assert abs(dlon_arcsec + 0.5 * 15.041) < 0.05
+    assert abs(moved["lat_deg"] - base["lat_deg"]) * 3600.0 < 0.05

@@ -85,6 +85,7 @@ CASES = [
     (_mut(["contacts", 0, "image"], 2), "contacts[0].image: must be an image id"),
     (_mut(["contacts", 0, "sigma_s"], -0.5), "contacts[0].sigma_s"),
     (_mut(["contacts", 0], "x"), "contacts[0]: must be an object"),
+    (_mut(["dut1_s"], 1.5), "session.dut1_s: 1.5 outside"),
     (_mut(["observer", "yaw_sigma_deg"], 30.0), "observer.yaw_sigma_deg: 30.0 outside"),
     (_mut(["track", "velocity_sigma_kn"], "fast"), "track.velocity_sigma_kn: must be a number"),
     (_mut(["instrument", "reaction_delay_s"], 5.0), "instrument.reaction_delay_s: 5.0 outside"),
