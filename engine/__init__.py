@@ -3,7 +3,11 @@
 Standard library only, and only what MicroPython on a small board also has.
 Modules: ``timescale`` (UTC/TT/UT1, instants as int microseconds), ``angles``
 (degree trigonometry and formatting), ``constants``, ``almanac`` (compact
-Chebyshev almanac of the Sun and Moon).
+Chebyshev almanac of the Sun and Moon), ``corrections`` (dip, refraction,
+semi-diameter, parallax), ``sphere`` (altitude/azimuth, rhumb-line DR),
+``model`` (THE forward model of a timed contact), ``session``
+(``limbclock-session/1`` reader), ``fix`` (least-squares fix, ellipse,
+blunders), ``instrument``, ``plan``, ``identify``, ``calibrate``.
 """
 
 
