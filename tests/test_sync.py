@@ -204,3 +204,26 @@ def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
     conn = archive.connect(db)
     check_same(conn, vt, recs)
     assert vt.fw.log.confirmed_seq == recs[-1].seq
+
+
+def test_voids_and_sessions_from_the_button(tmp_path):
+    """Gestures on the timer (device/button.py: hold 1-3 s voids the last contact, 5-8 s starts a
+    session) arrive as their own records: the voided contact is kept and marked, sessions split."""
+    cs = presses(6, step_s=60)
+    vt = VirtualTimer(contacts=cs)
+    vt.world.press(cs[2][0] + 20000000, 1500000)           # void the third contact
+    vt.world.press(cs[3][0] + 20000000, 6000000)           # a new session before the fifth
+    vt.run_contacts()
+    recs = device_records(vt)
+    kinds = [KIND_NAMES[r.kind] for r in recs]
+    assert kinds.count("contact") == 6 and kinds.count("void") == 1
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    res = sync.sync(TimerClient(vt.loopback()), conn)
+    assert res["new"] == len(recs)
+    check_same(conn, vt, recs)
+    rows = archive.contacts(conn)
+    assert [r["void"] for r in rows] == [False, False, True, False, False, False]
+    groups = archive.refresh_sessions(conn)
+    assert [g["contacts"] for g in groups] == [3, 2]                 # contacts that count (not voided)
+    assert len(archive.session_contacts(conn, groups[0])) == 3
+    assert archive.session_contacts(conn, groups[0], include_voided=True)[2]["void"] is True
