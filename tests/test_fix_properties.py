@@ -160,3 +160,23 @@ def test_any_valid_session_gives_a_fix_or_a_clear_error(day_s, lat, lon, course,
         assert str(e)
         return
     assert -90.0 <= r["lat_deg"] <= 90.0 and math.isfinite(r["ellipse_95"]["major_nm"])
+
+
+@pytest.mark.parametrize("name", GOOD[:3])
+def test_three_mislabels_and_a_wrong_limb(name):
+    d = json.loads(json.dumps(DOCS[name]))
+    ids = [im["id"] for im in d["instrument"]["images"]]
+    truth = {}
+    for k in (3, 11, 20):
+        c = d["contacts"][k]
+        j = ids.index(c["image"])
+        truth[k] = c["image"]
+        c["image"] = ids[j + 1 if j + 1 < len(ids) else j - 1]
+    c = d["contacts"][9]
+    c["limb"] = "upper" if c["limb"] == "lower" else "lower"
+    r = engine.reduce_session(json.dumps(d), ALM)
+    assert r["rejected"] == [3, 9, 11, 20]
+    for k, true_id in truth.items():
+        assert "->%s: probably mislabelled" % true_id in r["contacts"][k]["reason"]
+    assert "probably the wrong limb" in r["contacts"][9]["reason"]
+    assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
