@@ -97,3 +97,40 @@ def test_archive_commands_on_the_demo_archive(demo):
     assert json.loads(limbclock("session", "--db", db, "--json"))[0]["fixes"] == 2
     human = limbclock("export", "--db", db, "--csv", os.path.join(out, "again"))
     assert "2 fixes" in human and "wrote" in human
+
+
+def test_plan_and_calibrate_from_the_archive(demo, tmp_path):
+    """``archive plan`` builds the same session as the file the demo wrote (same predictions as
+    ``limbclock plan``); ``archive calibrate`` at the scenario's true track recovers the true
+    deviations of the invented instrument within 1' (noise: 0.4' altitude, 0.3 s timing)."""
+    import shutil
+    from host import demo as scenario
+    out, _, s = demo
+    db = str(tmp_path / "cal.sqlite3")
+    shutil.copy(os.path.join(out, "archive.sqlite3"), db)
+    t_from, t_to = "2032-01-18T08:00:00Z", "2032-01-18T17:00:00Z"
+    a = json.loads(limbclock("archive", "plan", "--db", db, "--session", "1", "--from", t_from, "--to", t_to,
+                             "--json"))
+    b = json.loads(limbclock("plan", os.path.join(out, "session.json"), "--from", t_from, "--to", t_to, "--json"))
+    assert [(c["utc"], c["image"]) for c in a["contacts"]] == [(c["utc"], c["image"]) for c in b["contacts"]]
+    assert len(a["contacts"]) >= 14
+    # the navigator corrects the mislabelled note first (the fix rejected that contact)
+    from engine import almanac
+    timed = scenario.contact_times(almanac.load(), scenario.build_instrument()[1])
+    wrong = [k for k, c in enumerate(timed) if c["note"] is not None and c["note"] != c["image"]]
+    assert len(wrong) == 1 and wrong[0] in s["fix"]["rejected"]
+    with open(os.path.join(out, "session.json")) as f:
+        seq = json.load(f)["contacts"][wrong[0]]["seq"]
+    t = scenario.TRUE_TRACK
+    limbclock("session", "--db", db, "--session", "1", "--known",
+              "--label", "%d=%s" % (seq, timed[wrong[0]]["image"]),
+              "--track", "%s,%.6f,%.6f,%.1f,%.1f" % (t["utc"], t["lat_deg"], t["lon_deg"], t["course_deg"], t["speed_kn"]))
+    cal = json.loads(limbclock("archive", "calibrate", "--db", db, "--session", "1", "--json"))
+    truth = scenario.build_instrument()[1]
+    got = dict((im["id"], im["deviation_deg"]) for im in cal["images"] if im.get("contacts"))
+    assert len(got) >= 6
+    for iid, dev in got.items():
+        assert abs(dev - truth[iid]) * 60 < 1.0, (iid, dev, truth[iid])
+    conn = archive.connect(db)
+    assert len(archive.calibrations(conn, 1)) == 1
+    conn.close()
