@@ -107,6 +107,11 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
 
     ``track``: the session's DR track dict (session-file form) or None;
     ``truth``: (lat_deg, lon_deg) of the true position at the fix epoch, or None."""
+    return _save(sheet_figure(fix, track, truth, title, radius_nm), path)
+
+
+def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
+    """The plotting sheet as a matplotlib ``Figure`` (its first axes is the chart)."""
     lat0, lon0 = fix["lat_deg"], fix["lon_deg"]
     t_fix = timescale.parse_utc(fix["utc"])
     e = fix.get("ellipse_95") or {}
@@ -221,7 +226,7 @@ def plotting_sheet(fix, path, track=None, truth=None, title=None, radius_nm=None
     fig.text(0.5, 0.947, "Mercator-correct local chart, lines of position at the fix epoch; " + sub,
              ha="center", fontsize=8.5, color="0.25")
     _cautions(fig)
-    return _save(fig, path)
+    return fig
 
 
 def contact_timeline(fix, path, predicted=None, title=None):

@@ -147,3 +147,39 @@ def test_csv_from_archive(tmp_path):
     assert out["contacts"][0]["utc"] == "2031-05-14T07:50:00.250000Z"
     assert {k: out["contacts"][0][k] for k in ("seq", "device", "void")} == {"seq": 0, "device": "T-9", "void": True}
     assert out["fixes"][0]["lat_deg"] == 41.30
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@settings(max_examples=60, deadline=None)
+@given(lat=st.floats(-70, 70), lon=st.floats(-179.5, 179.5), major=st.floats(0.2, 20.0),
+       ratio=st.floats(0.05, 1.0), axis=st.floats(0.0, 180.0))
+def test_ellipse_ring_any_shape(lat, lon, major, ratio, axis):
+    """Every ring point lies on the ellipse (x/a)^2 + (y/b)^2 = 1 in the local plane of the fix
+    (measured with the haversine distance and initial bearing written out above); the ring is
+    closed and counter-clockwise (RFC 7946 3.1.6)."""
+    minor = major * ratio
+    fix = {"lat_deg": lat, "lon_deg": lon, "ellipse_95": {"major_nm": major, "minor_nm": minor,
+                                                           "major_axis_deg": axis}}
+    ring = exports.ellipse_points(fix, npoints=24)
+    assert ring[0] == ring[-1]
+    pts = [(p[1], p[0]) for p in ring]
+    # unwrap longitudes near the antimeridian before the signed area
+    pts = [((x - lon + 540) % 360 - 180, y) for x, y in pts]
+    assert shoelace(pts) > 0
+    for p in ring[:-1]:
+        d = haversine_nm(lat, lon, p[0], p[1])
+        # mean of the forward and the reversed back bearing: the bearing at mid-path, where the
+        # convergence of the meridians cancels to first order
+        fwd = bearing_deg(lat, lon, p[0], p[1])
+        back = (bearing_deg(p[0], p[1], lat, lon) + 180.0) % 360
+        mid = fwd + ((back - fwd + 180.0) % 360 - 180.0) / 2
+        b = math.radians(mid - axis)
+        u, v = d * math.cos(b), d * math.sin(b)
+        # the local plane (engine.sphere.move_nm) differs from great-circle distance and bearing by
+        # the convergence of the meridians: a few metres over 20 nmi.  A point off by tol_nm moves
+        # F = (u/a)^2 + (v/b)^2 by at most 2 tol_nm / b.
+        tol_nm = 0.001 + 1e-4 * major
+        assert abs((u / major) ** 2 + (v / minor) ** 2 - 1.0) <= 2 * tol_nm / minor

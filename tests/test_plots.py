@@ -53,3 +53,17 @@ def test_contact_timeline(tmp_path):
 def test_bad_extension(tmp_path):
     with pytest.raises(ValueError, match="must end in .png or .svg"):
         plots.plotting_sheet(FIX_FULL, str(tmp_path / "sheet.jpg"))
+
+
+def test_sheet_is_mercator_correct():
+    """On a Mercator chart a minute of longitude is cos(lat) of a minute of latitude (Bowditch,
+    NGA Pub. 9, chart projections [from memory]): the axes' aspect is 1/cos(lat) and the view
+    spans the same distance in nmi both ways."""
+    import math
+    for lat in (41.3, -55.0, 5.0):
+        fix = dict(FIX_FULL, lat_deg=lat)
+        ax = plots.sheet_figure(fix).axes[0]
+        assert ax.get_aspect() == pytest.approx(1.0 / math.cos(math.radians(lat)), rel=1e-12)
+        (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
+        assert (x1 - x0) * 60 * math.cos(math.radians(lat)) == pytest.approx((y1 - y0) * 60, rel=1e-9)
+        assert x0 < fix["lon_deg"] < x1 and y0 < lat < y1
