@@ -77,6 +77,9 @@ MAX_OFFSET_VIF = 10.0              # largest variance inflation of the offset th
 MAX_STEP_NM = 60.0
 MAX_ITERATIONS = 40
 MAX_LAT_DEG = 89.0
+CONVERGED_NM = 1e-3                # last step below 2 m ...
+CONVERGED_QUAD = 1e-6              # ... or below 0.001 sigma (dx' N dx)
+STALLED_QUAD = 1e-3                # ... or no longer shrinking below 0.03 sigma (rounding floor)
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
 PRESCREEN_K = 5.0                  # robust first pass: gross blunders beyond 5 robust sigma are dropped
 DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 1.0,
@@ -166,7 +169,7 @@ def _cholesky(items, cov):
 
 def _forward(L, v):
     """y with L y = v."""
-    if isinstance(L[0], float):
+    if not isinstance(L[0], list):
         return [x / d for x, d in zip(v, L)]
     y = []
     for i, row in enumerate(L):
@@ -179,7 +182,7 @@ def _forward(L, v):
 
 def _backward(L, y):
     """x with L^T x = y."""
-    if isinstance(L[0], float):
+    if not isinstance(L[0], list):
         return [x / d for x, d in zip(y, L)]
     n = len(L)
     x = [0.0] * n
@@ -333,6 +336,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         L = None if huber else factor(use)
         its = 0
         converged = False
+        prev_quad = 1e30
         for its in range(1, MAX_ITERATIONS + 1):
             evaluate(use, lat_e, lon_e, bias)
             if huber:
@@ -350,9 +354,15 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
                 raise FixError("the fix ran off toward a pole: the contacts do not fit the track")
             if with_bias:
                 bias += dx[2]
-            if step < 1e-4 and (not with_bias or abs(dx[2]) < 1e-4):
+            # converged: a step below 2 m, or below 1/1000 of the fix's own sigma in every direction
+            # (dx' N dx < 1e-6), or steps that no longer shrink once below 3 % of sigma: the rounding
+            # floor of a single-precision board, where the model's own noise keeps the steps jittering
+            quad = sum(dx[r] * N[r][c] * dx[c] for r in range(len(dx)) for c in range(len(dx)))
+            if (step < CONVERGED_NM and (not with_bias or abs(dx[2]) < CONVERGED_NM)) or quad < CONVERGED_QUAD \
+                    or (quad < STALLED_QUAD and quad > 0.25 * prev_quad):
                 converged = True
                 break
+            prev_quad = quad
         if not converged and not huber:
             warnings.append("the fix did not converge in %d iterations" % MAX_ITERATIONS)
         evaluate(use, lat_e, lon_e, bias)
