@@ -122,12 +122,33 @@ def speed(alm):
     print("   reference libraries (numpy/ERFA): %7.1f ms  (6 iterations, unit weights, no blunder tests)"
           % (t_ref * 1e3))
     print("   ratio engine / reference:         %7.2f" % (t_engine / t_ref))
+    mp_ms = _micropython_ms(text)
+    if mp_ms is not None:
+        print("   engine under MicroPython (WebAssembly port, node): %7.1f ms  (ratio to CPython %.1f)"
+              % (mp_ms, mp_ms / (t_engine * 1e3)))
     from vectors.generate_schedule import rhumb
     tl, tn = rhumb(d["truth"]["track"], np.array([timescale.parse_utc(r["utc"])], dtype=np.int64))
     tl, tn = float(tl[0]), float(tn[0])
     print("   distance from the truth: engine %.4f nmi, reference least squares %.4f nmi (its Ho leaves out the"
           % (distance_nm(r["lat_deg"], r["lon_deg"], tl, tn), distance_nm(lat, lon, tl, tn)))
     print("   Moon's augmentation and the flattening term, and weights all lines alike)")
+
+
+def _micropython_ms(text, n=5):
+    """Mean time (ms) of engine.reduce_session under the MicroPython WebAssembly port, or None."""
+    import sys
+    sys.path.insert(0, os.path.join(ROOT, "tests"))
+    try:
+        from mpy import available, run_micropython
+    except ImportError:
+        return None
+    if not available():
+        return None
+    code = ("import time, engine\nfrom engine import almanac\nalm = almanac.load()\ntext = %r\n"
+            "engine.reduce_session(text, alm)\nt0 = time.ticks_ms()\n"
+            "for _ in range(%d):\n    engine.reduce_session(text, alm)\n"
+            "print(time.ticks_diff(time.ticks_ms(), t0) / %d)\n" % (text, n, n))
+    return float(run_micropython(code).strip().splitlines()[-1])
 
 
 # ---------------------------------------------------------------------------- Monte Carlo
