@@ -148,15 +148,19 @@ def _statements(script):
 def migrate(conn, target=SCHEMA_VERSION):
     """Bring the database to ``target``, one step at a time, each in one transaction.
 
-    Returns the list of versions passed through."""
-    version = conn.execute("PRAGMA user_version").fetchone()[0]
-    if version > SCHEMA_VERSION:
-        raise ArchiveError("archive schema version %d is newer than this limbclock understands (%d): "
-                           "upgrade limbclock" % (version, SCHEMA_VERSION))
+    The version is read inside the write transaction, so two programs opening a new
+    archive at once do not both create it.  Returns the list of versions passed through."""
     steps = []
-    while version < target:
+    while True:
         conn.execute("BEGIN IMMEDIATE")
         try:
+            version = conn.execute("PRAGMA user_version").fetchone()[0]
+            if version > SCHEMA_VERSION:
+                raise ArchiveError("archive schema version %d is newer than this limbclock understands (%d): "
+                                   "upgrade limbclock" % (version, SCHEMA_VERSION))
+            if version >= target:
+                conn.execute("COMMIT")
+                return steps
             for stmt in _statements(MIGRATIONS[version]):
                 conn.execute(stmt)
             conn.execute("PRAGMA user_version = %d" % (version + 1))
@@ -164,9 +168,7 @@ def migrate(conn, target=SCHEMA_VERSION):
         except BaseException:
             conn.execute("ROLLBACK")
             raise
-        version += 1
-        steps.append(version)
-    return steps
+        steps.append(version + 1)
 
 
 def connect(path, target=SCHEMA_VERSION):

@@ -191,3 +191,24 @@ def test_default_path_follows_xdg(monkeypatch, tmp_path):
     monkeypatch.delenv("XDG_DATA_HOME")
     monkeypatch.setenv("HOME", str(tmp_path / "home"))
     assert archive.default_path() == str(tmp_path / "home" / ".local" / "share" / "limbclock" / "archive.sqlite3")
+
+
+def test_two_programs_creating_one_archive(tmp_path):
+    """Both see a new file; the version is read inside the write lock, so only one creates it."""
+    import threading
+    path = str(tmp_path / "race.sqlite3")
+    errors = []
+
+    def open_it():
+        try:
+            archive.connect(path).close()
+        except Exception as exc:  # collected for the assertion
+            errors.append(exc)
+    threads = [threading.Thread(target=open_it) for _ in range(6)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert errors == []
+    conn = archive.connect(path)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == archive.SCHEMA_VERSION and archive.integrity_ok(conn)

@@ -227,3 +227,49 @@ def test_voids_and_sessions_from_the_button(tmp_path):
     assert [g["contacts"] for g in groups] == [3, 2]                 # contacts that count (not voided)
     assert len(archive.session_contacts(conn, groups[0])) == 3
     assert archive.session_contacts(conn, groups[0], include_voided=True)[2]["void"] is True
+
+
+def test_pty_disconnect_mid_transfer_then_resync(tmp_path):
+    """The timer goes away mid-transfer (its pseudo-terminal closes); back on a new port with its
+    stored log, the next sync fetches exactly the rest."""
+    import threading
+    state = str(tmp_path / "state")
+    vt = VirtualTimer(contacts=presses(600), state_dir=state)
+    vt.run_contacts()
+    recs = device_records(vt)
+    port = vt.start()
+    db = str(tmp_path / "a.sqlite3")
+    errors = []
+
+    def pull():
+        try:
+            sync.sync_port(port, db, progress=False, timeout=0.2, retries=2, batch=4)
+        except OSError as exc:
+            errors.append(exc)
+    th = threading.Thread(target=pull)
+    th.start()
+    deadline = time.time() + 20
+    while time.time() < deadline:         # pull the plug once a hundred records are in
+        if os.path.exists(db):
+            watch = archive.connect(db)
+            got = archive.last_seq(watch, vt.device_id) if archive.devices(watch) else -1
+            watch.close()
+            if got >= 100:
+                break
+        time.sleep(0.01)
+    vt.stop()
+    th.join(20)
+    assert len(errors) == 1 and ("went away" in str(errors[0]) or "no answer" in str(errors[0]))
+    conn = archive.connect(db)
+    part = archive.last_seq(conn, vt.device_id)
+    assert 100 <= part < recs[-1].seq
+    back = VirtualTimer(contacts=[], state_dir=state, start_us=vt.now_us())
+    # acknowledged <= committed: at most the batch in flight was committed but not yet acknowledged
+    assert part - 4 <= back.fw.log.confirmed_seq <= part
+    port = back.start()
+    try:
+        res = sync.sync_port(port, db, progress=False, timeout=0.2)
+    finally:
+        back.stop()
+    assert res["new"] == recs[-1].seq - part and res["duplicates"] == 0
+    check_same(conn, vt, recs)
