@@ -22,8 +22,10 @@ largest errors are shared between contacts):
   covariance rate_i rate_j sigma^2;
 * image deviation: sigma of the image (``sigma_arcmin``, default 1.0'), shared by
   every contact of that image;
-* dip anomaly (default 1.0'; Tschudin, Applied Optics 55, 3104, 2016: anomalies of
-  an arcminute are common), shared by all contacts;
+* dip anomaly (default 1.0'; dip follows the air-sea temperature difference,
+  REFERENCES 1.2 and Tschudin, Applied Optics 55, 3104, 2016; the size of the
+  anomaly is [from memory], matched to the Monte Carlo of bench/bench_fix.py),
+  shared by all contacts;
 * refraction anomaly: one scale error kappa (default 0.05) of the whole
   atmosphere, covariance kappa^2 R_i R_j;
 * the DR's course and speed (current, leeway, log error): a velocity error of
@@ -54,6 +56,11 @@ w_i = (S^-1 e)_i / sqrt((S^-1 Q_ee S^-1)_ii)); the contact with the largest
 redundancy remains.  A rejected contact that fits within 3 sigma when read as
 another image of the instrument (or the other limb) is reported as probably
 mislabelled.
+
+Memory: the covariance is never stored, only its Cholesky factor (n^2/2
+floats), so a board's heap holds a few dozen contacts.  Convergence: a step
+below 2 m, or below 0.001 sigma, or steps that stop shrinking below 0.03 sigma
+(the rounding floor in single precision; tests/test_fix_float32.py).
 
 The deviation offset is estimated ("auto") when its variance inflation
 (N^-1)_bb N_bb is at most ``MAX_OFFSET_VIF`` and there are at least four
