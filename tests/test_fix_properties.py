@@ -137,7 +137,7 @@ def test_linear_algebra_against_numpy():
     assert fix._cholesky([0, 1], lambda i, j, same: 1.0) is None          # singular: not positive definite
 
 
-_T0 = 1798761600 * 1000000      # 2027-01-01T00:00:00Z
+_T0 = 1798761600 * 1000000      # 2027-01-01T00:00:00Z (POSIX seconds from Python datetime)
 
 
 @settings(max_examples=40, deadline=None)

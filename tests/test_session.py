@@ -22,7 +22,7 @@ def test_design_example_parses():
     s = parse_session(json.dumps(EXAMPLE))
     assert s.observer.eye_height_m == 2.4 and s.observer.pressure_hpa == 1008.0
     assert s.images == [("i01", 5.3612, None), ("i02", 7.902, None)]
-    assert s.track.t0_us == 1880431200 * 1000000      # 2029-08-03T06:00:00Z (POSIX seconds, own arithmetic)
+    assert s.track.t0_us == 1880431200 * 1000000      # 2029-08-03T06:00:00Z: POSIX seconds from Python datetime
     assert s.track.course_deg == 212.0 and s.track.known is False
     c = s.contacts
     assert [x.index for x in c] == [0, 1] and c[0].image == "i02" and c[1].image is None
