@@ -61,9 +61,12 @@ UNLABELLED = 3
 DEVICE_ID = "LC-DEMO-07"
 
 
+_OUT = [sys.stdout]
+
+
 def say(msg=""):
-    print(msg)
-    sys.stdout.flush()
+    _OUT[0].write(msg + "\n")
+    _OUT[0].flush()
 
 
 def build_instrument():
@@ -167,8 +170,17 @@ def _sync_through_virtual_timer(session_path, state_dir, db_path, expect):
         vt.stop()
 
 
-def run(out_dir="demo-out", quiet=False):
-    """Run the whole demo into ``out_dir``; return a summary dict."""
+def run(out_dir="demo-out", stream=None):
+    """Run the whole demo into ``out_dir``, telling the story on ``stream`` (default stdout);
+    return a summary dict."""
+    _OUT[0] = stream or sys.stdout
+    try:
+        return _run(out_dir)
+    finally:
+        _OUT[0] = sys.stdout
+
+
+def _run(out_dir):
     t_start = time.time()
     os.makedirs(out_dir, exist_ok=True)
     alm = almanac.load()
@@ -237,7 +249,7 @@ def run(out_dir="demo-out", quiet=False):
     true_lat, true_lon = truth_at(t_fix)
     err_nm = sphere.distance_nm(result["lat_deg"], result["lon_deg"], true_lat, true_lon)
     inside = _inside_ellipse(result, true_lat, true_lon)
-    print_fix(result, indent="  ")
+    print_fix(result, out=_OUT[0], indent="  ")
     dr = result.get("dr") or {}
     dr_err = sphere.distance_nm(dr["lat_deg"], dr["lon_deg"], true_lat, true_lon) if dr else None
     images = result.get("images") or []

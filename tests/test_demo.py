@@ -33,9 +33,10 @@ def limbclock(*args, timeout=120):
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     out = str(tmp_path_factory.mktemp("demo") / "out")
-    text = limbclock("demo", "--out", out, "--json")
-    human, _, js = text.partition("\n{\n")
-    return out, human, json.loads("{\n" + js)
+    p = subprocess.run([sys.executable, "-m", "host", "demo", "--out", out, "--json"], cwd=ROOT,
+                       capture_output=True, text=True, timeout=120)
+    assert p.returncode == 0, p.stderr
+    return out, p.stderr, json.loads(p.stdout)
 
 
 def test_demo_runs_the_whole_chain(demo):
