@@ -68,6 +68,8 @@ def register(sub):
     p.add_argument("--csv", default=None, metavar="DIR", help="write contacts.csv and fixes.csv here")
     p.add_argument("--gpx", default=None, metavar="FILE", help="GPX 1.1: fixes as waypoints, DR tracks")
     p.add_argument("--geojson", default=None, metavar="FILE", help="GeoJSON: fixes, LOPs, 95%% ellipses, DR")
+    p.add_argument("--sessions", default=None, metavar="DIR",
+                   help="one limbclock-session/1 file per session with conditions attached")
     p.set_defaults(func=run_export)
 
 
@@ -302,7 +304,7 @@ def run_export(args):
     from host import exports
     conn = open_db(args)
     archive.refresh_sessions(conn)
-    written = exports.write_all(conn, args.csv, args.gpx, args.geojson)
+    written = exports.write_all(conn, args.csv, args.gpx, args.geojson, args.sessions)
     if args.json:
         print(json.dumps(exports.archive_json(conn), indent=1))
         return 0
@@ -313,5 +315,5 @@ def run_export(args):
     for path in written:
         print("wrote %s" % path)
     if not written:
-        print("(give --csv DIR, --gpx FILE or --geojson FILE to write files, --json for everything)")
+        print("(give --csv DIR, --gpx FILE, --geojson FILE or --sessions DIR to write files, --json for everything)")
     return 0

@@ -221,11 +221,21 @@ def session_tracks(conn):
     return out
 
 
-def write_all(conn, csv_dir=None, gpx_path=None, geojson_path=None):
-    """Write the requested files; return the list of paths written."""
+def write_all(conn, csv_dir=None, gpx_path=None, geojson_path=None, sessions_dir=None):
+    """Write the requested files; return the list of paths written.  ``sessions_dir``: one
+    ``limbclock-session/1`` file per session whose conditions are attached."""
     import os
     from host import archive
     written = []
+    if sessions_dir:
+        os.makedirs(sessions_dir, exist_ok=True)
+        for s in archive.sessions(conn):
+            if s["observer"] is None or s["track"] is None or s["instrument_id"] is None:
+                continue
+            path = os.path.join(sessions_dir, "session-%d.json" % s["session_id"])
+            with open(path, "w", encoding="utf-8") as f:
+                f.write(archive.session_text(conn, s["session_id"]) + "\n")
+            written.append(path)
     fx = archive.fixes(conn)
     results = [dict(f["result"], name="fix %d (session %d)" % (f["fix_id"], f["session_id"])) for f in fx]
     tracks = session_tracks(conn)

@@ -74,6 +74,15 @@ def _hhmmss(utc):
     return utc[11:19] if isinstance(utc, str) else timescale.format_utc(utc, 0)[11:19]
 
 
+def _body_limb(c):
+    """'' for the Sun's lower limb (the usual case), else e.g. 'Moon UL '."""
+    body = c.get("body") or "sun"
+    limb = c.get("limb") or "lower"
+    if body == "sun" and limb == "lower":
+        return ""
+    return "%s %s " % (body.capitalize(), "LL" if limb == "lower" else "UL")
+
+
 def _nice_scale(span_nm):
     """A round scale-bar length (nmi) about a quarter of ``span_nm``."""
     target = span_nm / 4.0
@@ -180,7 +189,7 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
             angle -= 180
         elif angle < -90:
             angle += 180
-        text = "%s %s" % (_hhmmss(c.get("utc", "")), c.get("image") or "?")
+        text = "%s %s%s" % (_hhmmss(c.get("utc", "")), _body_limb(c), c.get("image") or "?")
         if not used:
             text += " (rejected)"
         ax.text(lab[1], lab[0], text, color=colour, fontsize=7.5, rotation=angle, rotation_mode="anchor",

@@ -96,8 +96,12 @@ def test_archive_commands_on_the_demo_archive(demo):
     assert again["lat_deg"] == pytest.approx(s["fix"]["lat_deg"], abs=1e-6)
     assert again["lon_deg"] == pytest.approx(s["fix"]["lon_deg"], abs=1e-6)
     assert json.loads(limbclock("session", "--db", db, "--json"))[0]["fixes"] == 2
-    human = limbclock("export", "--db", db, "--csv", os.path.join(out, "again"))
+    human = limbclock("export", "--db", db, "--csv", os.path.join(out, "again"), "--sessions",
+                      os.path.join(out, "sessions"))
     assert "2 fixes" in human and "wrote" in human
+    with open(os.path.join(out, "sessions", "session-%d.json" % sid), "rb") as f:
+        again_session = parse_session(f.read())          # the engine's reader accepts it
+    assert len(again_session.contacts) == s["contacts"]
 
 
 def test_plan_and_calibrate_from_the_archive(demo, tmp_path):

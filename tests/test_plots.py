@@ -14,7 +14,8 @@ PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 SVG = "{http://www.w3.org/2000/svg}"
 
 FIX_FULL = dict(FIX, dr={"lat_deg": 41.33, "lon_deg": -9.80},
-                contacts=[dict(c, sigma_nm=0.5) for c in FIX["contacts"]])
+                contacts=[dict(c, sigma_nm=0.5, body="moon" if k == 1 else "sun",
+                               limb="upper" if k == 1 else "lower") for k, c in enumerate(FIX["contacts"])])
 
 
 def read(path):
@@ -39,6 +40,7 @@ def test_plotting_sheet_png_and_svg(tmp_path):
     assert root.tag == SVG + "svg"
     text = read(svg)
     assert "shade glass" in text and "07:50:00 i02" in text and "(rejected)" in text
+    assert "08:00:00 Moon UL i03" in text
 
 
 def test_contact_timeline(tmp_path):
