@@ -180,3 +180,19 @@ def test_three_mislabels_and_a_wrong_limb(name):
         assert "->%s: probably mislabelled" % true_id in r["contacts"][k]["reason"]
     assert "probably the wrong limb" in r["contacts"][9]["reason"]
     assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
+
+
+def test_lop_points_geometry():
+    # the LOP of a contact: perpendicular to Zn through the point residual_nm from the fix toward Zn
+    d = json.loads(json.dumps(DOCS["station_sun"]))
+    d["contacts"][5]["image"] = d["instrument"]["images"][6]["id"]      # a big residual to see the geometry
+    r = engine.reduce_session(json.dumps(d), ALM)
+    c = r["contacts"][5]
+    foot = fix.lop_points(r, c, half_length_nm=0.0)[0]
+    assert abs(distance_nm(r["lat_deg"], r["lon_deg"], foot[0], foot[1]) - abs(c["residual_nm"])) < 0.01 * abs(
+        c["residual_nm"])
+    a, b = fix.lop_points(r, c, half_length_nm=10.0)
+    assert abs(distance_nm(a[0], a[1], b[0], b[1]) - 20.0) < 0.1
+    for end in (a, b):   # each end is 10 nmi from the foot, and sqrt(r^2 + 100) from the fix
+        assert abs(distance_nm(foot[0], foot[1], end[0], end[1]) - 10.0) < 0.1
+        assert abs(distance_nm(r["lat_deg"], r["lon_deg"], end[0], end[1]) - math.hypot(c["residual_nm"], 10.0)) < 0.5
