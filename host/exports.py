@@ -28,7 +28,7 @@ from xml.sax.saxutils import escape, quoteattr
 
 from engine import sphere, timescale
 from engine.fix import lop_points
-from engine.angles import cosd, fmt_lat, fmt_lon, sind
+from engine.angles import cosd, fmt_lat, fmt_lon, norm180, sind
 
 GPX_NS = "http://www.topografix.com/GPX/1/1"
 LOP_HALF_LENGTH_NM = 4.0
@@ -150,6 +150,89 @@ def _ll(p):
     return [round(p[1], 7), round(p[0], 7)]
 
 
+def _unwrap(points):
+    """[(lat, lon)] -> [[x, y]] with x = longitude made continuous from the first point."""
+    out = []
+    for lat, lon in points:
+        x = lon if not out else out[-1][0] + norm180(lon - out[-1][0])
+        out.append([x, lat])
+    return out
+
+
+def _shift_into_range(part):
+    """Move a piece lying on one side of the 180th meridian into [-180, 180] as a whole, so an
+    end on the cut keeps the sign of its own piece (+180 for the west piece, -180 for the east)."""
+    mid = sum(p[0] for p in part) / len(part)
+    k = 360.0 * round(mid / 360.0)
+    return [[round(x - k, 7), round(y, 7)] for x, y in part]
+
+
+def _edges_between(x0, x1):
+    """The cut meridians (odd multiples of 180) strictly between two unwrapped longitudes."""
+    lo, hi = min(x0, x1), max(x0, x1)
+    k = math.ceil((lo - 180.0) / 360.0)
+    out = []
+    while 180.0 + 360.0 * k < hi:
+        e = 180.0 + 360.0 * k
+        if e > lo:
+            out.append(e)
+        k += 1
+    return out if x1 >= x0 else out[::-1]
+
+
+def _line_geometry(points):
+    """LineString of (lat, lon) points, cut at the 180th meridian into a MultiLineString
+    when it crosses it (RFC 7946 section 3.1.9)."""
+    xy = _unwrap(points)
+    parts = [[xy[0]]]
+    for a, b in zip(xy, xy[1:]):
+        for e in _edges_between(a[0], b[0]):
+            cut = _cross(a, b, e)
+            parts[-1].append(cut)
+            parts.append([list(cut)])
+        parts[-1].append(b)
+    parts = [_shift_into_range(p) for p in parts if len(p) > 1]
+    if len(parts) == 1:
+        return {"type": "LineString", "coordinates": parts[0]}
+    return {"type": "MultiLineString", "coordinates": parts}
+
+
+def _clip(ring, edge, keep_below):
+    """Sutherland-Hodgman clip of a closed convex ring [[x, y]] to x <= edge (or x >= edge)."""
+    inside = (lambda p: p[0] <= edge) if keep_below else (lambda p: p[0] >= edge)
+    out = []
+    pts = ring[:-1]
+    for k, cur in enumerate(pts):
+        prev = pts[k - 1]
+        if inside(cur):
+            if not inside(prev):
+                out.append(_cross(prev, cur, edge))
+            out.append(cur)
+        elif inside(prev):
+            out.append(_cross(prev, cur, edge))
+    if out:
+        out.append(list(out[0]))
+    return out
+
+
+def _cross(a, b, edge):
+    f = (edge - a[0]) / (b[0] - a[0])
+    return [edge, a[1] + f * (b[1] - a[1])]
+
+
+def _polygon_geometry(ring_points):
+    """Polygon of a small closed convex ring of (lat, lon), cut at the 180th meridian into a
+    MultiPolygon when it crosses it (RFC 7946 section 3.1.9); the rings stay counter-clockwise."""
+    xy = _unwrap(ring_points)
+    xs = [p[0] for p in xy]
+    edges = _edges_between(min(xs), max(xs))
+    if edges:
+        e = edges[0]
+        pieces = [_shift_into_range(_clip(xy, e, True)), _shift_into_range(_clip(xy, e, False))]
+        return {"type": "MultiPolygon", "coordinates": [[p] for p in pieces]}
+    return {"type": "Polygon", "coordinates": [_shift_into_range(xy)]}
+
+
 def geojson(fixes, tracks=()):
     """A GeoJSON FeatureCollection (dict): per fix a Point, its 95 % ellipse (Polygon) and
     one LineString per contact's line of position; per track a LineString."""
@@ -162,18 +245,18 @@ def geojson(fixes, tracks=()):
                                      "contacts_used": r.get("contacts_used")}})
         if e and e.get("major_nm") is not None:
             feats.append({"type": "Feature",
-                          "geometry": {"type": "Polygon", "coordinates": [[_ll(p) for p in ellipse_points(r)]]},
+                          "geometry": _polygon_geometry(ellipse_points(r)),
                           "properties": {"kind": "ellipse_95", "name": name}})
         for c in r.get("contacts", []):
             if c.get("residual_nm") is None or c.get("zn_deg") is None:
                 continue
             a, b = lop_points(r, c, LOP_HALF_LENGTH_NM)
-            feats.append({"type": "Feature", "geometry": {"type": "LineString", "coordinates": [_ll(a), _ll(b)]},
+            feats.append({"type": "Feature", "geometry": _line_geometry([a, b]),
                           "properties": {"kind": "lop", "fix": name, "index": c.get("index"), "utc": c.get("utc"),
                                          "image": c.get("image"), "zn_deg": c["zn_deg"],
                                          "residual_nm": c["residual_nm"], "used": c.get("used", True)}})
     for name, pts in tracks:
-        feats.append({"type": "Feature", "geometry": {"type": "LineString", "coordinates": [_ll((p[1], p[2])) for p in pts]},
+        feats.append({"type": "Feature", "geometry": _line_geometry([(p[1], p[2]) for p in pts]),
                       "properties": {"kind": "dr_track", "name": name,
                                      "utc_from": timescale.format_utc(pts[0][0], 0),
                                      "utc_to": timescale.format_utc(pts[-1][0], 0)}})

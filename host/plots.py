@@ -30,7 +30,7 @@ import textwrap
 
 from engine import sphere, timescale
 from engine.fix import lop_points
-from engine.angles import cosd, fmt_lat, fmt_lon, sind, split_dm
+from engine.angles import cosd, fmt_lat, fmt_lon, norm180, sind, split_dm
 from host import exports
 from host.cautions import CAUTION_SHORT
 
@@ -97,7 +97,7 @@ def _dm_formatter(kind):
 
     def f(v, _pos):
         _sign, _d, m = split_dm(v, 1)
-        text = fmt_lat(v, 1) if kind == "lat" else fmt_lon(v, 1)
+        text = fmt_lat(v, 1) if kind == "lat" else fmt_lon(norm180(v), 1)
         return text if m != 0 else text.replace("00.0'", "")
     return FuncFormatter(f)
 
@@ -141,6 +141,10 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
     k = 1.0 / cosd(lat0)
     dlat = r_nm / 60.0
     dlon = r_nm / 60.0 * k
+    def ux(lon):
+        """Longitude unwrapped next to the fix's (a sheet may straddle the 180th meridian)."""
+        return lon0 + norm180(lon - lon0)
+
     ax.set_xlim(lon0 - dlon, lon0 + dlon)
     ax.set_ylim(lat0 - dlat, lat0 + dlat)
     ax.set_aspect(k)
@@ -156,11 +160,11 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
     if track:
         times = [timescale.parse_utc(c["utc"]) for c in contacts if c.get("utc")] + [t_fix]
         pts = exports.track_points(track, min(times) - 600000000, max(times) + 600000000, 60)
-        ax.plot([p[2] for p in pts], [p[1] for p in pts], color="0.25", lw=1.2, zorder=2, label="DR track")
+        ax.plot([ux(p[2]) for p in pts], [p[1] for p in pts], color="0.25", lw=1.2, zorder=2, label="DR track")
         for p in pts[::10]:
-            ax.plot([p[2]], [p[1]], marker="o", ms=2.5, color="0.25", zorder=2)
+            ax.plot([ux(p[2])], [p[1]], marker="o", ms=2.5, color="0.25", zorder=2)
     if dr:
-        ax.plot([dr["lon_deg"]], [dr["lat_deg"]], marker="s", mfc="white", mec="0.2", ms=7, zorder=4, ls="none",
+        ax.plot([ux(dr["lon_deg"])], [dr["lat_deg"]], marker="s", mfc="white", mec="0.2", ms=7, zorder=4, ls="none",
                 label="DR at fix time")
 
     # lines of position
@@ -171,13 +175,13 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
         used = c.get("used", True)
         colour = image_colour(c.get("image")) if used else REJECTED
         a, b = lop_points(fix, c, half_length_nm=2.5 * r_nm)
-        ax.plot([a[1], b[1]], [a[0], b[0]], color=colour, lw=1.6 if used else 1.0, ls="-" if used else "--",
+        ax.plot([ux(a[1]), ux(b[1])], [a[0], b[0]], color=colour, lw=1.6 if used else 1.0, ls="-" if used else "--",
                 zorder=3, label=None if used or legend_rejected else "rejected line")
         legend_rejected = legend_rejected or not used
         foot = lop_points(fix, c, half_length_nm=0.0)[0]
         # the azimuth arrow at the foot, a tenth of the view long
         tip = sphere.move_nm(foot[0], foot[1], 0.12 * r_nm * cosd(c["zn_deg"]), 0.12 * r_nm * sind(c["zn_deg"]))
-        ax.annotate("", xy=(tip[1], tip[0]), xytext=(foot[1], foot[0]),
+        ax.annotate("", xy=(ux(tip[1]), tip[0]), xytext=(ux(foot[1]), foot[0]),
                     arrowprops=dict(arrowstyle="->", color=colour, lw=1.0), zorder=3)
         # label along the line, placed where the line is inside the view
         lab = sphere.move_nm(foot[0], foot[1], -0.55 * r_nm * sind(c["zn_deg"]) * (1 if n % 2 else -1),
@@ -192,21 +196,21 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
         text = "%s %s%s" % (_hhmmss(c.get("utc", "")), _body_limb(c), c.get("image") or "?")
         if not used:
             text += " (rejected)"
-        ax.text(lab[1], lab[0], text, color=colour, fontsize=7.5, rotation=angle, rotation_mode="anchor",
+        ax.text(ux(lab[1]), lab[0], text, color=colour, fontsize=7.5, rotation=angle, rotation_mode="anchor",
                 ha="center", va="bottom", zorder=5,
                 bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.75))
 
     # the 95 % ellipse and the fix
     if e.get("major_nm") is not None:
         ring = exports.ellipse_points(fix)
-        ax.fill([p[1] for p in ring], [p[0] for p in ring], color="#ffcc00", alpha=0.30, zorder=4, lw=0)
-        ax.plot([p[1] for p in ring], [p[0] for p in ring], color="#b8860b", lw=1.2, zorder=4,
+        ax.fill([ux(p[1]) for p in ring], [p[0] for p in ring], color="#ffcc00", alpha=0.30, zorder=4, lw=0)
+        ax.plot([ux(p[1]) for p in ring], [p[0] for p in ring], color="#b8860b", lw=1.2, zorder=4,
                 label="95%% ellipse %.1f \u00d7 %.1f nmi" % (e["major_nm"], e["minor_nm"]))
     ax.plot([lon0], [lat0], marker="+", color="k", ms=16, mew=2.0, zorder=6, ls="none",
             label="fix %s %s %sZ" % (fmt_lat(lat0), fmt_lon(lon0), _hhmmss(fix["utc"])))
     if truth:
         miss = sphere.distance_nm(lat0, lon0, truth[0], truth[1])
-        ax.plot([truth[1]], [truth[0]], marker="*", color="#2ca02c", mec="k", mew=0.6, ms=14, zorder=6, ls="none",
+        ax.plot([ux(truth[1])], [truth[0]], marker="*", color="#2ca02c", mec="k", mew=0.6, ms=14, zorder=6, ls="none",
                 label="true position (scenario), %.2f nmi from fix" % miss)
 
     # scale bar, lower left, along a parallel
@@ -227,12 +231,12 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
     ax.set_xlabel("longitude", fontsize=9)
     ax.set_ylabel("latitude", fontsize=9)
     used = sum(1 for c in contacts if c.get("used", True))
-    sub = "%d lines used, %d rejected" % (used, len(contacts) - used) if contacts else ""
+    sub = ["%d lines used, %d rejected" % (used, len(contacts) - used)] if contacts else []
     if fix.get("sigma0") is not None:
-        sub += ", sigma0 %.2f" % fix["sigma0"]
+        sub.append("sigma0 %.2f" % fix["sigma0"])
     fig.text(0.5, 0.972, title or "Plotting sheet: fix at %s" % fix["utc"], ha="center", fontsize=11.5,
              fontweight="bold")
-    fig.text(0.5, 0.947, "Mercator-correct local chart, lines of position at the fix epoch; " + sub,
+    fig.text(0.5, 0.947, "; ".join(["Mercator-correct local chart, lines of position at the fix epoch"] + sub),
              ha="center", fontsize=8.5, color="0.25")
     _cautions(fig)
     return fig

@@ -183,3 +183,28 @@ def test_ellipse_ring_any_shape(lat, lon, major, ratio, axis):
         # F = (u/a)^2 + (v/b)^2 by at most 2 tol_nm / b.
         tol_nm = 0.001 + 1e-4 * major
         assert abs((u / major) ** 2 + (v / minor) ** 2 - 1.0) <= 2 * tol_nm / minor
+
+
+def test_geojson_cut_at_the_antimeridian():
+    """RFC 7946 section 3.1.9: a geometry crossing the 180th meridian is cut in two; every
+    longitude stays within [-180, 180], the rings stay closed and counter-clockwise."""
+    fix = {"utc": "2031-05-14T08:10:00.000Z", "lat_deg": -16.5, "lon_deg": 179.99,
+           "ellipse_95": {"major_nm": 3.0, "minor_nm": 1.0, "major_axis_deg": 80.0},
+           "contacts": [{"index": 0, "utc": "2031-05-14T08:00:00.000Z", "zn_deg": 0.0, "residual_nm": 0.4},
+                        {"index": 1, "utc": "2031-05-14T08:05:00.000Z", "zn_deg": 90.0, "residual_nm": -0.2}]}
+    t0 = timescale.parse_utc("2031-05-14T06:00:00Z")
+    track = {"utc": "2031-05-14T06:00:00Z", "lat_deg": -16.6, "lon_deg": 179.9, "course_deg": 80.0, "speed_kn": 7.0}
+    gj = exports.geojson([fix], [("DR", exports.track_points(track, t0, t0 + 2 * 3600 * 1000000))])
+    geoms = [f["geometry"] for f in gj["features"]]
+    assert [g["type"] for g in geoms] == ["Point", "MultiPolygon", "MultiLineString", "LineString",
+                                          "MultiLineString"]
+    ell = geoms[1]["coordinates"]
+    for (ring,) in ell:
+        assert ring[0] == ring[-1] and shoelace(ring) > 0
+        assert all(-180.0 <= x <= 180.0 for x, _ in ring)
+    assert max(x for x, _ in ell[0][0]) == 180.0 and min(x for x, _ in ell[1][0]) == -180.0
+    for g in (geoms[2], geoms[4]):                 # the E-W line of position, the DR track
+        west, east = g["coordinates"]
+        assert west[-1][0] == 180.0 and east[0][0] == -180.0 and west[-1][1] == east[0][1]
+        assert all(-180.0 <= x <= 180.0 for part in (west, east) for x, _ in part)
+    assert geoms[3]["coordinates"][0][0] > 179.9     # the N-S line stays whole, west of the cut

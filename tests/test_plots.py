@@ -69,3 +69,18 @@ def test_sheet_is_mercator_correct():
         (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
         assert (x1 - x0) * 60 * math.cos(math.radians(lat)) == pytest.approx((y1 - y0) * 60, rel=1e-9)
         assert x0 < fix["lon_deg"] < x1 and y0 < lat < y1
+
+
+def test_sheet_across_the_antimeridian():
+    """A fix at 179 deg 59' E: every drawn longitude is continuous with the fix's (no line
+    wrapping round the world), and the tick labels read E on one side and W on the other."""
+    fix = dict(FIX_FULL, lat_deg=-16.5, lon_deg=179.99, dr={"lat_deg": -16.45, "lon_deg": -179.95})
+    track = {"utc": "2031-05-14T06:00:00Z", "lat_deg": -16.8, "lon_deg": 179.5, "course_deg": 80.0, "speed_kn": 7.0}
+    fig = plots.sheet_figure(fix, track=track, truth=(-16.52, -179.99))
+    ax = fig.axes[0]
+    for line in ax.lines:
+        xs = [float(x) for x in line.get_xdata()]
+        assert all(abs(x - 179.99) < 3.0 for x in xs), xs
+    fig.canvas.draw()
+    labels = [t.get_text() for t in ax.get_xticklabels() if t.get_text()]
+    assert any(lab.endswith("E") for lab in labels) and any(lab.endswith("W") for lab in labels), labels
