@@ -171,11 +171,13 @@ def _choice(obj, key, path, choices):
     return v
 
 
-def parse_session(text, alm=None):
+def parse_session(text, alm=None, need_contacts=True):
     """Validate ``limbclock-session/1`` JSON text (str or bytes) and return a Session.
 
     With ``alm`` (an almanac with ``span_us()``), contacts and the track epoch
-    must lie within the almanac's span.  Raises SessionError."""
+    must lie within the almanac's span.  ``need_contacts=False`` accepts an
+    empty contact list (planning needs only the track and the instrument).
+    Raises SessionError."""
     if isinstance(text, (bytes, bytearray)):
         try:
             text = text.decode("utf-8")
@@ -187,10 +189,10 @@ def parse_session(text, alm=None):
         data = json.loads(text)
     except ValueError as e:
         raise SessionError("session: not valid JSON (%s)" % e)
-    return session_from_dict(data, alm)
+    return session_from_dict(data, alm, need_contacts)
 
 
-def session_from_dict(data, alm=None):
+def session_from_dict(data, alm=None, need_contacts=True):
     """Validate an already decoded session (a dict) and return a Session."""
     if not isinstance(data, dict):
         raise SessionError("session: must be a JSON object, got %s" % _show(data))
@@ -264,7 +266,7 @@ def session_from_dict(data, alm=None):
     raw_contacts = data["contacts"]
     if not isinstance(raw_contacts, list):
         raise SessionError("contacts: must be a list, got %s" % _show(raw_contacts))
-    if not raw_contacts:
+    if not raw_contacts and need_contacts:
         raise SessionError("contacts: empty (a session needs at least one contact)")
     span = _span(alm)
     contacts = []

@@ -72,7 +72,7 @@ def _inputs(args):
             raise UserError("give either a SESSION or --lat/--lon/--instrument, not both")
         from engine.session import parse_session
         with open(args.session, "rb") as f:
-            s = parse_session(f.read())
+            s = parse_session(f.read(), need_contacts=False)
         images, track, observer = s.images, s.track, s.observer
     else:
         if args.lat is None or args.lon is None or not args.instrument:

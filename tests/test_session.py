@@ -163,3 +163,13 @@ def test_fuzz_only_session_errors(path, value, delete):
 def test_fuzz_garbage_text(raw):
     with pytest.raises(SessionError):
         parse_session(raw)
+
+
+def test_planning_accepts_an_empty_contact_list():
+    # planning needs only the track and the instrument (DESIGN.md: plan ignores the session's contacts)
+    data = copy.deepcopy(EXAMPLE)
+    data["contacts"] = []
+    s = parse_session(json.dumps(data), need_contacts=False)
+    assert s.contacts == [] and len(s.images) == len(data["instrument"]["images"])
+    with pytest.raises(SessionError, match="contacts: empty"):
+        parse_session(json.dumps(data))
