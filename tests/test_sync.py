@@ -59,6 +59,22 @@ def check_same(conn, vt, recs):
     assert archive.integrity_ok(conn)
 
 
+def committed(db, device_id):
+    """Highest seq committed for the device, read without taking any lock (-1: nothing yet)."""
+    import sqlite3
+    if not os.path.exists(db):
+        return -1
+    try:
+        conn = sqlite3.connect("file:%s?mode=ro" % db, uri=True, timeout=1.0)
+        try:
+            row = conn.execute("SELECT last_seq FROM devices WHERE device_id=?", (device_id,)).fetchone()
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError:          # not created yet
+        return -1
+    return -1 if row is None else row[0]
+
+
 def test_sync_over_pty_with_link_faults(tmp_path):
     vt = VirtualTimer(contacts=presses(60, moon_every=7), link_faults=0.001, seed=3)
     vt.run_contacts()
@@ -183,8 +199,15 @@ def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
     mid_transfer = 0
     try:
         for _ in range(10):
+            held = committed(db, vt.device_id)
             proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-            time.sleep(rng.uniform(0.1, 0.7))
+            if rng.random() < 0.3:
+                time.sleep(rng.uniform(0.0, 0.3))               # early: start-up, handshake, first batch
+            else:                                               # or once the archive has grown a little
+                target = held + rng.randint(1, 200)
+                deadline = time.time() + 20
+                while proc.poll() is None and committed(db, vt.device_id) < target and time.time() < deadline:
+                    time.sleep(0.002)
             killed = proc.poll() is None
             if killed:
                 proc.send_signal(signal.SIGKILL)
