@@ -32,8 +32,11 @@ def classify(hold_us):
 
 
 class Button:
-    """Feed ``edge(tick, pressed)``; ``poll(now)`` returns finished gestures ``(name, press_tick)``."""
-    __slots__ = ("raw", "raw_tick", "stable", "change_tick", "press_tick", "glitches")
+    """Feed ``edge(tick, pressed)``; ``poll(now)`` returns finished gestures ``(name, press_tick)``.
+
+    A level that stayed put for ``DEBOUNCE_US`` is settled either by ``poll`` or by the
+    next edge (whichever comes first), so a slow main loop cannot lose a press."""
+    __slots__ = ("raw", "raw_tick", "stable", "change_tick", "press_tick", "glitches", "done")
 
     def __init__(self):
         self.raw = False
@@ -42,31 +45,36 @@ class Button:
         self.change_tick = None     # first edge since the level left ``stable``
         self.press_tick = None
         self.glitches = 0
+        self.done = []
 
     def edge(self, tick, pressed):
+        self._settle(tick)
         if pressed != self.stable and self.change_tick is None:
             self.change_tick = tick
         self.raw = pressed
         self.raw_tick = tick
 
-    def poll(self, now):
+    def _settle(self, now):
         if self.change_tick is None or now - self.raw_tick < DEBOUNCE_US:
-            return []
+            return
         if self.raw == self.stable:          # bounced back: a spike, not a change
             self.change_tick = None
             self.glitches += 1
-            return []
+            return
         t = self.change_tick
         self.change_tick = None
         self.stable = self.raw
         if self.stable:
             self.press_tick = t
-            return []
-        if self.press_tick is None:
-            return []
-        p = self.press_tick
-        self.press_tick = None
-        return [(classify(t - p), p)]
+        elif self.press_tick is not None:
+            self.done.append((classify(t - self.press_tick), self.press_tick))
+            self.press_tick = None
+
+    def poll(self, now):
+        self._settle(now)
+        out = self.done
+        self.done = []
+        return out
 
     def hint(self, now):
         """The gesture a release at ``now`` would make, or None when not held."""

@@ -29,6 +29,7 @@ E_BAD = 2            # malformed request body
 E_REFUSED = 3        # the device will not do it now (e.g. set time while GPS-locked)
 E_LOG = 4            # the log cannot do it (ack beyond the last record)
 E_FILE = 5           # file push failed (gap, size or CRC mismatch, unknown slot, no space)
+E_DAMAGED = 6        # a damaged frame arrived (seq unknown): the host may resend at once
 
 SLOTS = ("instrument", "almanac", "track")
 CHUNK = 512                      # bytes of file data per PUSH_DATA
@@ -77,7 +78,11 @@ class Protocol:
 
     def feed(self, data):
         out = b""
-        for ftype, seq, body in self.decoder.feed(data):
+        errors = self.decoder.errors
+        frames = self.decoder.feed(data)
+        if self.decoder.errors != errors:
+            out += frame.encode(ERROR, 0, bytes((E_DAMAGED,)) + b"damaged frame")
+        for ftype, seq, body in frames:
             key = (ftype, seq, bytes(body))
             now = self.fw.now()
             if key == self.last_key and now - self.last_tick < REPLAY_US:

@@ -127,7 +127,10 @@ class TimerClient:
                        % (self.name, self.retries + 1))
 
     def _wait(self, ftype, seq):
+        """The answer ``(type, body)`` to request ``seq``, or None after ``timeout`` or as soon as
+        a damaged frame shows the answer (or the request) was hit by noise."""
         deadline = self._now() + self.timeout
+        errors = self.decoder.errors
         while self._now() < deadline:
             try:
                 n = getattr(self.port, "in_waiting", 0) or 1
@@ -136,10 +139,18 @@ class TimerClient:
                 raise PortUnavailable("the timer on %s went away: %s" % (self.name, e))
             if not data:
                 continue
-            for rtype, rseq, rbody in self.decoder.feed(data):
+            frames = self.decoder.feed(data)
+            for rtype, rseq, rbody in frames:
+                if rtype == P.ERROR and rbody[:1] == bytes((P.E_DAMAGED,)):
+                    return None                   # the timer saw a damaged request: resend now
                 if rseq == seq and rtype in (ftype | P.RESPONSE, P.ERROR):
                     return rtype, rbody
+            if self.decoder.errors != errors and not self._pending():
+                return None                       # our answer arrived damaged: resend now
         return None
+
+    def _pending(self):
+        return bool(getattr(self.port, "in_waiting", 0))
 
     def _json(self, ftype, body=b""):
         raw = self.request(ftype, body)
