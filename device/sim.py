@@ -69,6 +69,20 @@ def read_contacts(session):
     return out
 
 
+def _read_progress(path):
+    try:
+        with open(path) as f:
+            doc = json.load(f)
+    except FileNotFoundError:
+        return None
+    except ValueError:
+        raise SimError("%s is damaged: remove it to press the whole session again" % path)
+    if not isinstance(doc, dict) or doc.get("format") != "limbclock-sim-progress/1" or \
+            not isinstance(doc.get("last_pressed_utc_us"), int):
+        raise SimError("%s: not a limbclock-sim-progress/1 file" % path)
+    return doc["last_pressed_utc_us"]
+
+
 class Faults:
     """Drops or corrupts a fraction ``rate`` of bytes (half each), seeded."""
 
@@ -101,11 +115,25 @@ class VirtualTimer:
                  display_file=None, display_stderr=False, capacity=65536, ticks_period=TICKS_PERIOD,
                  start_us=None, device_id="LC-SIM1", press_us=120000):
         self.contacts = list(contacts or []) if session is None else read_contacts(session)
+        self.state_dir = state_dir
+        self.progress_path = None
+        self.already_pressed = 0
+        if state_dir:
+            os.makedirs(state_dir, exist_ok=True)
+            # a restarted virtual timer does not press again what it pressed in an earlier run
+            self.progress_path = os.path.join(state_dir, "sim-progress.json")
+            done = _read_progress(self.progress_path)
+            if done is not None:
+                left = [c for c in self.contacts if c[0] > done]
+                self.already_pressed = len(self.contacts) - len(left)
+                self.contacts = left
+                if start_us is None and not left:
+                    start_us = done + 10000000
+        self._saved = None
         if start_us is None:
             start_us = (self.contacts[0][0] if self.contacts else int(time.time()) * 1000000) - LEAD_US
         self.start_us = start_us
-        self.state_dir = state_dir
-        self.base_store = FileStore(state_dir) if state_dir else MemStore()
+        self.base_store = FileStore(os.path.join(state_dir, "flash")) if state_dir else MemStore()
         self.faults_in = Faults(link_faults, seed)
         self.faults_out = Faults(link_faults, seed + 1)
         self.speed = speed
@@ -187,8 +215,23 @@ class VirtualTimer:
                 self.power_cut_at_us = None
                 self._power_off()
                 continue
+            self._save_progress()
             if self.world.t_us >= t_us:
                 return
+
+    def _save_progress(self):
+        if self.progress_path is None:
+            return
+        done = None
+        for c in self.contacts:
+            if c[0] + 3000000 <= self.world.t_us:
+                done = c[0]
+        if done is not None and done != self._saved:
+            self._saved = done
+            tmp = self.progress_path + ".tmp"
+            with open(tmp, "w") as f:
+                json.dump({"format": "limbclock-sim-progress/1", "last_pressed_utc_us": done}, f)
+            os.replace(tmp, self.progress_path)
 
     def run_contacts(self):
         """Run through every scheduled contact (as fast as possible) and until their records are written."""
