@@ -259,7 +259,7 @@ class Clock:
             if e0 <= tick < e1:
                 span = e1 - e0
                 lab = self._label_of(i)
-                if lab is not None and abs(span - US) <= PAIR_TOL_US:
+                if lab is not None and abs(span - US) <= PAIR_TOL_US and len(self.fit_t) >= MIN_PAIRS:
                     return (lab + (tick - e0) * US // span, LOCKED, self.profile.sigma_lock_us)
                 break
         st = self.state(tick_now)

@@ -162,12 +162,20 @@ class Log:
         seq = self.base_seq
         off = HEADER_LEN
         total = st.size(self.name)
-        while off + RECORD_LEN <= total:
-            r = unpack_record(st.read(self.name, off, RECORD_LEN))
-            if r is None or r.seq != seq:
+        good = True
+        while good and off + RECORD_LEN <= total:
+            chunk = st.read(self.name, off, 16 * RECORD_LEN)       # 16 records per read
+            i = 0
+            while i + RECORD_LEN <= len(chunk):
+                r = unpack_record(chunk, i)
+                if r is None or r.seq != seq:
+                    good = False
+                    break
+                seq += 1
+                i += RECORD_LEN
+            off += i
+            if i == 0:
                 break
-            seq += 1
-            off += RECORD_LEN
         if off < total:
             self.recovered_bytes = total - off
             st.truncate(self.name, off)

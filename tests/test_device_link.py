@@ -195,3 +195,18 @@ def test_real_pty_with_pyserial_and_link_faults(tmp_path):
             assert c.status()["log"]["confirmed_seq"] == 40
     finally:
         vt.stop()
+
+
+def test_busy_port_is_named():
+    m, s = os.openpty()
+    tty.setraw(s)
+    name = os.ttyname(s)
+    try:
+        first = TimerClient(name, timeout=0.1, retries=0)
+        with pytest.raises(PortUnavailable) as e:
+            TimerClient(name, timeout=0.1, retries=0)
+        assert "busy" in str(e.value) and name in str(e.value)
+        first.close()
+    finally:
+        os.close(m)
+        os.close(s)
