@@ -2,9 +2,9 @@
 
 See ``device/PROTOCOL.md`` for the commands and their bodies.  The codec is
 ``device.frame``; this module only knows the command numbers and bodies.
-A retried request (same ``seq``, type and body as the last one, within
-``REPLAY_US``) gets the
-cached response again without running the command twice.
+A retried command that changes something (``CHANGES``: same ``seq``, type and
+body as the last one, within ``REPLAY_US``) gets the cached response again
+without running twice; reads are simply run again (fresh data).
 """
 import binascii
 import json
@@ -22,6 +22,7 @@ PUSH_DATA = 0x07
 PUSH_END = 0x08
 FILE_INFO = 0x09
 RESPONSE = 0x80
+CHANGES = (ACK, SET_TIME, PUSH_BEGIN, PUSH_DATA, PUSH_END)   # answered from the cache when repeated
 ERROR = 0x7F
 
 E_UNKNOWN = 1        # unknown command
@@ -85,7 +86,7 @@ class Protocol:
         for ftype, seq, body in frames:
             key = (ftype, seq, bytes(body))
             now = self.fw.now()
-            if key == self.last_key and now - self.last_tick < REPLAY_US:
+            if ftype in CHANGES and key == self.last_key and now - self.last_tick < REPLAY_US:
                 out += self.last_reply
                 continue
             self.requests += 1
