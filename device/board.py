@@ -107,9 +107,12 @@ class Board(Hardware):
         return self.gps.read(n) if n else b""
 
     def host_read(self):
-        if self._poll is None or not self._poll.poll(0):
+        if self._poll is None:
             return b""
-        return self._in.read(1) or b""
+        buf = b""
+        while len(buf) < 256 and self._poll.poll(0):      # what has arrived, without blocking
+            buf += self._in.read(1) or b""
+        return buf
 
     def host_write(self, data):
         self._out.write(data)

@@ -28,7 +28,7 @@ STATE_FILE = "state.json"
 class Firmware:
     __slots__ = ("hw", "ticks", "nmea", "clock", "button", "log", "proto", "device_id", "firmware_version",
                  "session", "body", "limb", "pending", "message", "fault", "lines", "file_capacity",
-                 "last_contact", "voided", "hint", "store")
+                 "last_contact", "voided", "hint", "store", "display_due", "dirty")
 
     def __init__(self, hw, device_id="LC-0001", capacity=65536, profile=clk.TCXO, file_capacity=262144):
         self.hw = hw
@@ -45,6 +45,8 @@ class Firmware:
         self.fault = None
         self.lines = None
         self.hint = None
+        self.display_due = 0
+        self.dirty = True
         self.session, self.body, self.limb = 1, 0, 0
         self._load_state()
         self.last_contact = None
@@ -104,13 +106,15 @@ class Firmware:
             if hint is not None and hint != "contact":
                 hw.buzz(".")              # a chirp at each step of a held press
             self.hint = hint
+            self.dirty = True
         self._resolve(now)
         data = hw.host_read()
         if data:
             out = self.proto.feed(data)
             if out:
                 hw.host_write(out)
-        self._display(now)
+        if self.dirty or now >= self.display_due:
+            self._display(now)
 
     def run(self):
         while True:
@@ -158,11 +162,13 @@ class Firmware:
             self.hw.buzz("---")
             self.message = "LOG FULL: SYNC! not saved"
             self.fault = str(e)
+            self.dirty = True
 
     def _ack(self, pattern, message):
         self.hw.buzz(pattern)
         self.message = message
         self.fault = None
+        self.dirty = True
 
     def set_time(self, utc_us, unc_us):
         now = self.now()
@@ -174,6 +180,7 @@ class Firmware:
 
     def files_changed(self, slot):
         self.message = "file %s received" % slot
+        self.dirty = True
 
     # -- outputs --------------------------------------------------------------
     def status(self):
@@ -190,6 +197,9 @@ class Firmware:
                 "pending": len(self.pending), "fault": self.fault, "display": self.lines or []}
 
     def _display(self, now):
+        """Refresh the display lines: at most every 100 ms, or at once after an event."""
+        self.dirty = False
+        self.display_due = now + 100000
         utc, state, unc = self.clock.now(now)
         if state == clk.NONE:
             l1 = "NO TIME - wait GPS"
