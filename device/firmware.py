@@ -109,10 +109,9 @@ class Firmware:
             self.dirty = True
         self._resolve(now)
         data = hw.host_read()
-        if data:
-            out = self.proto.feed(data)
-            if out:
-                hw.host_write(out)
+        out = self.proto.feed(data) if data else self.proto.idle(now)
+        if out:
+            hw.host_write(out)
         if self.dirty or now >= self.display_due:
             self._display(now)
 

@@ -34,6 +34,7 @@ E_DAMAGED = 6        # a damaged frame arrived (seq unknown): the host may resen
 
 SLOTS = ("instrument", "almanac", "track")
 CHUNK = 512                      # bytes of file data per PUSH_DATA
+IDLE_GAP_US = 20000              # silence inside a frame longer than this: the frame is lost
 REPLAY_US = 10000000             # a repeated request within 10 s is a retry: answer from the cache
 LOG_BATCH_MAX = (frame.MAX_BODY - 12) // 33
 
@@ -65,7 +66,7 @@ def file_crc(store, name):
 
 class Protocol:
     """``feed(bytes)`` -> bytes to send back.  ``fw`` is the ``Firmware`` (status, log, clock, store)."""
-    __slots__ = ("fw", "decoder", "last_key", "last_reply", "last_tick", "push", "requests", "snapshot")
+    __slots__ = ("fw", "decoder", "last_key", "last_reply", "last_tick", "push", "requests", "snapshot", "last_rx")
 
     def __init__(self, fw):
         self.fw = fw
@@ -76,8 +77,19 @@ class Protocol:
         self.push = None                 # [slot, size, crc, received, running crc]
         self.requests = 0
         self.snapshot = None
+        self.last_rx = 0
+
+    def idle(self, now):
+        """Called when nothing arrived: a frame cut short (its 0x00 lost) for ``IDLE_GAP_US`` is
+        dropped and NAKed so that the host resends at once."""
+        if self.decoder.buf and now - self.last_rx > IDLE_GAP_US:
+            self.decoder.buf = bytearray()
+            self.decoder.errors += 1
+            return frame.encode(ERROR, 0, bytes((E_DAMAGED,)) + b"damaged frame")
+        return b""
 
     def feed(self, data):
+        self.last_rx = self.fw.now()
         out = b""
         errors = self.decoder.errors
         frames = self.decoder.feed(data)

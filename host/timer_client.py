@@ -25,6 +25,7 @@ from device import PROTOCOL_VERSION, frame, protocol as P
 from device.log import unpack_records, LogError, RECORD_LEN
 
 
+IDLE_GAP_S = 0.03                # silence inside a frame longer than this: the frame is lost
 MIN_BODY = 48                    # smallest frame body the client falls back to on a noisy link
 
 
@@ -131,6 +132,7 @@ class TimerClient:
         a damaged frame shows the answer (or the request) was hit by noise."""
         deadline = self._now() + self.timeout
         errors = self.decoder.errors
+        last_rx = self._now()
         while self._now() < deadline:
             try:
                 n = getattr(self.port, "in_waiting", 0) or 1
@@ -138,7 +140,12 @@ class TimerClient:
             except Exception as e:
                 raise PortUnavailable("the timer on %s went away: %s" % (self.name, e))
             if not data:
+                if self.decoder.buf and self._now() - last_rx > IDLE_GAP_S:
+                    # a frame stopped mid-way: its end (the 0x00) was lost; drop it and resend
+                    self.decoder.buf = bytearray()
+                    return None
                 continue
+            last_rx = self._now()
             frames = self.decoder.feed(data)
             for rtype, rseq, rbody in frames:
                 if rtype == P.ERROR and rbody[:1] == bytes((P.E_DAMAGED,)):
@@ -267,7 +274,7 @@ def _open_serial(port, baudrate):
     except ImportError:
         raise PortUnavailable("pyserial is not installed: pip install 'limbclock[host]'")
     try:
-        return serial.Serial(port, baudrate, timeout=0.05, write_timeout=2.0, exclusive=True)
+        return serial.Serial(port, baudrate, timeout=0.01, write_timeout=2.0, exclusive=True)
     except serial.SerialException as e:
         text = str(e)
         if "busy" in text.lower() or "lock" in text.lower():
