@@ -4,6 +4,7 @@
     limbclock push --port /dev/ttyACM0 --instrument stack.json
 """
 import json
+import sys
 
 from host import archive
 from host.errors import UserError
@@ -42,8 +43,11 @@ def run_sync(args):
     res = sync.sync_port(args.port, db, progress=args.progress, timeout=args.timeout, batch=args.batch)
     if args.json:
         print(json.dumps({"new": res["new"], "duplicates": res["duplicates"], "device": res["device"],
-                          "last_seq": res["last_seq"], "db": db}))
+                          "last_seq": res["last_seq"], "not_on_timer": res["not_on_timer"], "db": db}))
         return 0
+    if res["not_on_timer"]:
+        print("note: %d earlier record(s) of timer %s were confirmed to another archive and are no longer "
+              "on the timer; they are not in this one" % (res["not_on_timer"], res["device"]), file=sys.stderr)
     print("timer %s: %d new record(s), %d duplicate(s); archive holds up to seq %d (%s)"
           % (res["device"], res["new"], res["duplicates"], res["last_seq"], db))
     return 0

@@ -13,7 +13,9 @@ A kill, a pulled cable or a power cut at any point leaves the archive with
 whole batches only, and the timer still holding (unacknowledged) everything
 the archive may lack; the next sync starts from the archive's last committed
 seq, so nothing is lost and nothing is stored twice.  A record the archive
-already holds is counted as a duplicate; one that differs is an error.
+already holds is counted as a duplicate; one that differs is an error.  Records
+the timer no longer has (confirmed to another archive, then reclaimed) are
+counted in ``not_on_timer``.
 
 Serial transport, framing and retries are ``host.timer_client``'s; records
 are ``device.log.Record`` objects, turned into the archive's plain dicts by
@@ -25,6 +27,7 @@ import time
 from host import archive
 
 PROGRESS_MIN_RECORDS = 200    # show a progress bar from this many records to fetch
+FIRST_SEQ = 1                 # a new timer log numbers its first record 1 (device/log.py, Log.open)
 
 
 class SyncError(ValueError):
@@ -95,8 +98,8 @@ def sync(client, conn, progress=None, batch=None, stream=None):
     with archive.transaction(conn):
         archive.ensure_device(conn, device_id, info.get("protocol"), info.get("firmware"))
     have = archive.last_seq(conn, device_id)
-    s = have + 1
-    new = dup = batches = 0
+    s = max(have + 1, FIRST_SEQ)
+    new = dup = batches = skipped = 0
     bar = None
     kw = {} if batch is None else {"batch": batch}
     base = nxt = None
@@ -107,6 +110,9 @@ def sync(client, conn, progress=None, batch=None, stream=None):
                 raise SyncError("timer %s numbers its next record %d but the archive already holds up to %d: "
                                 "was the timer reset? (its log restarted; refusing to mix the two)"
                                 % (device_id, nxt, have))
+            if batches == 0 and base > s:
+                # already confirmed to another archive and reclaimed on the timer: gone from here
+                skipped = base - s
             if bar is None:
                 todo = max(0, nxt - max(s, base))
                 show = progress if progress is not None else _isatty(stream or sys.stderr)
@@ -136,7 +142,8 @@ def sync(client, conn, progress=None, batch=None, stream=None):
             bar.close()
     with archive.transaction(conn):
         archive.record_sync(conn, device_id, started, new, dup)
-    return {"new": new, "duplicates": dup, "device": device_id, "last_seq": have, "batches": batches}
+    return {"new": new, "duplicates": dup, "device": device_id, "last_seq": have, "batches": batches,
+            "not_on_timer": skipped}
 
 
 def _isatty(stream):

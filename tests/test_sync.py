@@ -296,3 +296,18 @@ def test_pty_disconnect_mid_transfer_then_resync(tmp_path):
         back.stop()
     assert res["new"] == recs[-1].seq - part and res["duplicates"] == 0
     check_same(conn, vt, recs)
+
+
+def test_second_archive_is_told_what_the_timer_no_longer_has(tmp_path):
+    """Two archives (two laptops): the second sync finds the records confirmed to the first
+    reclaimed on the timer, says how many, and takes only what came after."""
+    vt = VirtualTimer(contacts=presses(30, step_s=60))
+    a = archive.connect(str(tmp_path / "a.sqlite3"))
+    b = archive.connect(str(tmp_path / "b.sqlite3"))
+    vt.advance_to(T0 + 15 * 60 * 1000000)               # half the presses done
+    first = sync.sync(TimerClient(vt.loopback()), a)
+    vt.run_contacts()
+    second = sync.sync(TimerClient(vt.loopback()), b)
+    assert first["new"] > 0 and second["not_on_timer"] == first["last_seq"]
+    assert second["new"] + first["new"] == len(archived(a, vt.device_id)) + len(archived(b, vt.device_id))
+    assert archived(b, vt.device_id)[0] == first["last_seq"] + 1
