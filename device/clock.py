@@ -91,7 +91,7 @@ XO = Profile("xo", 30, 4.0, 0.015, 50.0)
 class Clock:
     __slots__ = ("profile", "edges", "fit_t", "fit_l", "drift_ppm", "drift_sigma_ppm", "drift_ppt",
                  "have_drift", "anchor_tick", "anchor_utc", "manual_tick", "manual_utc", "manual_unc",
-                 "counts", "last_state")
+                 "counts")
 
     def __init__(self, profile=TCXO):
         self.profile = profile
@@ -109,7 +109,6 @@ class Clock:
         self.manual_unc = 0
         self.counts = {"pps": 0, "glitch": 0, "labels": 0, "ambiguous": 0, "conflict": 0,
                        "inconsistent": 0, "pairs": 0}
-        self.last_state = NONE
 
     # -- inputs -----------------------------------------------------------
     def on_pps(self, tick):
@@ -174,10 +173,12 @@ class Clock:
         if len(self.fit_t) > FIT_POINTS:
             self.fit_t.pop(0)
             self.fit_l.pop(0)
-        self.anchor_tick = tick
-        self.anchor_utc = utc_us
-        self.manual_tick = None
         if len(self.fit_t) >= MIN_PAIRS:
+            # only a pair confirmed by MIN_PAIRS consistent ones becomes the anchor: a label
+            # that jumped never moves the clock on its own
+            self.anchor_tick = tick
+            self.anchor_utc = utc_us
+            self.manual_tick = None
             self._fit()
 
     def _fit(self):

@@ -98,6 +98,9 @@ def test_ambiguous_label_is_rejected_and_wrong_second_never_paired():
     c.on_label(Label(t2 + 1000000, True, "ZDA"), osc.elapsed_ticks(t2 + 200000))
     assert c.counts["inconsistent"] == 1 and len(c.fit_t) == 1
     assert c.state(osc.elapsed_ticks(t2 + 300000)) != clk.LOCKED
+    # a press now is carried from the last trusted edge, not from the jumped label
+    utc, state, unc = c.stamp(osc.elapsed_ticks(t2 + 250000), osc.elapsed_ticks(t2 + 300000), force=True)
+    assert state == clk.HOLDOVER and abs(utc - (t2 + 250000)) <= unc < 1000
 
 
 def test_glitch_edge_ignored():
