@@ -184,6 +184,18 @@ def test_push_instrument_is_verified(tmp_path):
     assert client.file_info("instrument")["crc32"] == binascii.crc32(doc)
     with pytest.raises(ValueError, match="format"):
         sync.push(client, "instrument", b'{"format": "something-else/1"}')
+    with open(os.path.join(ROOT, "engine", "data", "2031.lca"), "rb") as f:
+        lca = f.read()
+    res = sync.push(client, "almanac", lca)
+    assert res["size"] == len(lca) and client.file_info("almanac")["crc32"] == binascii.crc32(lca)
+    with pytest.raises(ValueError):
+        sync.push(client, "almanac", lca[:-1] + bytes((lca[-1] ^ 1,)))     # its own CRC-32 fails
+    track = b'{"track": {"utc": "2031-05-14T06:00:00Z", "lat_deg": 41.2, "lon_deg": -9.7, "course_deg": 135, ' \
+            b'"speed_kn": 6}}'
+    res = sync.push(client, "track", track)
+    assert res["verified"] and client.file_info("track")["size"] == res["size"]
+    with pytest.raises(ValueError, match="lat_deg"):
+        sync.push(client, "track", b'{"utc": "2031-05-14T06:00:00Z", "lat_deg": 141.2, "lon_deg": -9.7}')
 
 
 def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
