@@ -4,7 +4,8 @@ Firmware core (imports under MicroPython): ``hal`` (hardware boundary and the
 file store), ``nmea`` (RMC/ZDA time labels), ``clock`` (PPS discipline,
 holdover, manual set), ``button`` (debounce and gestures), ``log`` (the
 power-safe contact log), ``frame`` (the one frame codec, shared with the host),
-``protocol`` (device-side commands) and ``firmware`` (the main loop).
+``protocol`` (device-side commands), ``firmware`` (the main loop) and ``board``
+(the ``machine`` boundary of a MicroPython board; imports anywhere).
 CPython only: ``simhw`` (simulated hardware) and ``sim`` (the virtual timer).
 """
 
