@@ -83,6 +83,30 @@ def _body_limb(c):
     return "%s %s " % (body.capitalize(), "LL" if limb == "lower" else "UL")
 
 
+def _label_spot(residual_nm, zn_deg, r_nm, placed, n):
+    """Distance (nmi, signed) along a line of position from its foot for its label: the first
+    candidate inside the view and farthest from the labels already placed (appended to ``placed``)."""
+    n0, e0 = residual_nm * cosd(zn_deg), residual_nm * sind(zn_deg)
+    best = None
+    sign = 1 if n % 2 else -1
+    for f in (0.5, 0.7, 0.35, 0.85, 0.6, 0.45, 0.78):
+        for side in (sign, -sign):
+            along = side * f * r_nm
+            pn, pe = n0 - along * sind(zn_deg), e0 + along * cosd(zn_deg)
+            if abs(pn) > 0.85 * r_nm or abs(pe) > 0.8 * r_nm:
+                continue
+            gap = min([((pn - qn) ** 2 + (pe - qe) ** 2) ** 0.5 for qn, qe in placed] or [9e9])
+            if best is None or gap > best[0] + 1e-9:
+                best = (gap, along, pn, pe)
+            if gap >= 0.3 * r_nm:
+                placed.append((pn, pe))
+                return along
+    if best is None:
+        return sign * 0.5 * r_nm
+    placed.append((best[2], best[3]))
+    return best[1]
+
+
 def _nice_scale(span_nm):
     """A round scale-bar length (nmi) about a quarter of ``span_nm``."""
     target = span_nm / 4.0
@@ -169,6 +193,7 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
 
     # lines of position
     legend_rejected = False
+    placed = []
     for n, c in enumerate(contacts):
         if c.get("residual_nm") is None or c.get("zn_deg") is None:
             continue
@@ -184,8 +209,9 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
         ax.annotate("", xy=(ux(tip[1]), tip[0]), xytext=(ux(foot[1]), foot[0]),
                     arrowprops=dict(arrowstyle="->", color=colour, lw=1.0), zorder=3)
         # label along the line, placed where the line is inside the view
-        lab = sphere.move_nm(foot[0], foot[1], -0.55 * r_nm * sind(c["zn_deg"]) * (1 if n % 2 else -1),
-                             0.55 * r_nm * cosd(c["zn_deg"]) * (1 if n % 2 else -1))
+        # the label goes where the line is inside the view and no other label is near
+        along = _label_spot(c["residual_nm"], c["zn_deg"], r_nm, placed, n)
+        lab = sphere.move_nm(foot[0], foot[1], -along * sind(c["zn_deg"]), along * cosd(c["zn_deg"]))
         # on a Mercator-correct sheet the screen angle is the true one: line direction
         # (north, east) = (-sin Zn, cos Zn)
         angle = math.degrees(math.atan2(-sind(c["zn_deg"]), cosd(c["zn_deg"])))
