@@ -128,6 +128,14 @@ def _pick_session(conn, args):
 def run_session(args):
     conn = open_db(args)
     s = _pick_session(conn, args)
+    attach = [opt for opt, v in (("--eye-height", args.eye_height), ("--temperature", args.temperature),
+                                 ("--pressure", args.pressure), ("--instrument", args.instrument),
+                                 ("--track", args.track), ("--out", args.out)) if v is not None]
+    if args.label or args.known:
+        attach.append("--label" if args.label else "--known")
+    if s is None and attach:
+        raise UserError("%s: say which session (--session ID, or --device ID --number N; "
+                        "`limbclock session --db FILE` lists them)" % attach[0])
     if s is None:
         rows = archive.sessions(conn)
         if args.json:
@@ -309,7 +317,7 @@ def run_export(args):
         print(json.dumps(exports.archive_json(conn), indent=1))
         return 0
     data = exports.archive_json(conn)
-    print("archive: %d timer(s), %d contacts (%d voided), %d sessions, %d fixes" % (
+    print("archive: %d timer(s), %d contact(s) (%d voided), %d session(s), %d fix(es)" % (
         len(data["devices"]), len(data["contacts"]), sum(1 for c in data["contacts"] if c["void"]),
         len(data["sessions"]), len(data["fixes"])))
     for path in written:

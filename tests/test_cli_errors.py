@@ -130,3 +130,9 @@ def test_push_refuses_a_bad_file_before_sending(tmp_path):
     bad.write_text('{"format": "limbclock-instrument/1", "images": [{"id": "i01"}]}')
     rc, _, err = limbclock("push", "--port", "/dev/no-such-timer", "--instrument", str(bad))
     one_line_error(rc, err, "push", "images[0].deviation_deg")     # the file, not the port, is named
+
+
+def test_attach_without_a_session(db_with_session):
+    db, _ = db_with_session
+    rc, _, err = limbclock("session", "--db", db, "--eye-height", "2.5")
+    one_line_error(rc, err, "session", "--eye-height: say which session")

@@ -98,7 +98,7 @@ def test_archive_commands_on_the_demo_archive(demo):
     assert json.loads(limbclock("session", "--db", db, "--json"))[0]["fixes"] == 2
     human = limbclock("export", "--db", db, "--csv", os.path.join(out, "again"), "--sessions",
                       os.path.join(out, "sessions"))
-    assert "2 fixes" in human and "wrote" in human
+    assert "2 fix(es)" in human and "wrote" in human
     with open(os.path.join(out, "sessions", "session-%d.json" % sid), "rb") as f:
         again_session = parse_session(f.read())          # the engine's reader accepts it
     assert len(again_session.contacts) == s["contacts"]
