@@ -39,6 +39,12 @@ monotonic drift of a quartz resonator.  The profiles below state both for a
 TCXO and for an uncompensated crystal (values from common practice for
 typical parts; check the datasheet of the board's part).
 
+Leap second: the receiver's ``23:59:60`` label is skipped (POSIX time cannot
+name it); the next label is inconsistent with the tick count and the fit
+restarts, so the clock is in holdover for the few seconds it takes to confirm
+``MIN_PAIRS`` new pairs.  A press inside the leap second itself is stamped as
+the following second (as a POSIX clock would).
+
 Manual set (e.g. from a radio time signal): ``set_time(utc_us, unc_us)`` is
 refused while GPS-locked; afterwards u(dt) = unc_us + (3 sigma_drift_ppm +
 tolerance) dt, with the learned drift if there is one (else the profile's

@@ -52,3 +52,44 @@ def test_hint_while_held():
     b.edge(0, True)
     b.poll(DEBOUNCE_US + 1)
     assert b.hint(500000) == "contact" and b.hint(2000000) == "void" and b.hint(6000000) == "session"
+
+
+@settings(max_examples=8, deadline=None)
+@given(st.lists(st.sampled_from([120000, 400000, 1500000, 3600000, 6000000, 9000000]), min_size=1, max_size=6))
+def test_gestures_through_the_whole_firmware(holds):
+    from device import log as L
+    from device.sim import VirtualTimer
+    from engine.timescale import parse_utc
+    t = parse_utc("2029-08-03T06:41:12.250Z")
+    vt = VirtualTimer(contacts=[], start_us=t - 60000000)
+    for i, h in enumerate(holds):
+        vt.world.press(t + i * 12000000, h)
+    vt.advance_to(t + len(holds) * 12000000 + 3000000)
+    # expected records, from the documented table (device/PROTOCOL.md)
+    expect = []
+    session, mode, last, voided = 1, 0, None, set()
+    seq = 0
+    for h in holds:
+        g = ("contact" if h < 1000000 else "void" if h < 3000000 else "mode" if h < 5000000 else
+             "session" if h < 8000000 else "cancel")
+        if g == "contact":
+            seq += 1
+            last = seq
+            expect.append((L.CONTACT, 0, session, mode))
+        elif g == "void" and last is not None and last not in voided:
+            seq += 1
+            voided.add(last)
+            expect.append((L.VOID, last, session, mode))
+        elif g == "mode":
+            seq += 1
+            mode = (mode + 1) % 4
+            expect.append((L.SETTINGS, 0, session, mode))
+        elif g == "session":
+            seq += 1
+            session += 1
+            expect.append((L.SESSION, 0, session, mode))
+    got = [(r.kind, r.ref_seq, r.session, r.body * 2 + r.limb) for r in vt.fw.log.records()]
+    assert got == expect
+    contacts = [r for r in vt.fw.log.records() if r.kind == L.CONTACT]
+    starts = [t + i * 12000000 for i, h in enumerate(holds) if h < 1000000]
+    assert [abs(r.utc_us - s) <= 1000 for r, s in zip(contacts, starts)] == [True] * len(starts)
