@@ -46,8 +46,18 @@ def test_migrates_from_every_earlier_version(tmp_path, start):
     conn.execute("INSERT INTO contacts (device_id, seq, utc_us, body, limb, session_no, quality, uncertainty_us) "
                  "VALUES ('T-0042', 0, ?, 'sun', 'lower', 3, 'locked', 500)", (T0,))
     conn.execute("INSERT INTO voids (device_id, seq, voided_seq, utc_us) VALUES ('T-0042', 1, 0, ?)", (T0 + 5,))
+    if start >= 2:      # a session with conditions and a fix, as version 2 stored them
+        conn.execute("INSERT INTO instruments (name, sha256, document, added_us) VALUES ('s', 'x', "
+                     "'{\"images\": [{\"id\": \"i01\", \"deviation_deg\": 5.7}]}', 0)")
+        conn.execute("INSERT INTO sessions (device_id, session_no, first_us, last_us, observer, track, "
+                     "instrument_id) VALUES ('T-0042', 3, ?, ?, '{\"eye_height_m\": 2.0}', '{}', 1)", (T0, T0))
+        conn.execute("INSERT INTO fixes (session_id, computed_us, utc_us, lat_deg, lon_deg, result) "
+                     "VALUES (1, 0, ?, 41.5, -9.5, '{\"lat_deg\": 41.5}')", (T0,))
     conn.close()
     conn = archive.connect(path)
+    if start >= 2:
+        assert [(f["lat_deg"], f["result"]) for f in archive.fixes(conn)] == [(41.5, {"lat_deg": 41.5})]
+        assert archive.get_instrument(conn, 1)["images"][0]["deviation_deg"] == 5.7
     assert conn.execute("PRAGMA user_version").fetchone()[0] == archive.SCHEMA_VERSION
     rows = archive.contacts(conn)
     assert [(r["seq"], r["utc_us"], r["void"], r["image"]) for r in rows] == [(0, T0, True, None)]
