@@ -39,11 +39,13 @@ monotonic drift of a quartz resonator.  The profiles below state both for a
 TCXO and for an uncompensated crystal (values from common practice for
 typical parts; check the datasheet of the board's part).
 
-Leap second: the receiver's ``23:59:60`` label is skipped (POSIX time cannot
-name it); the next label is inconsistent with the tick count and the fit
-restarts, so the clock is in holdover for the few seconds it takes to confirm
-``MIN_PAIRS`` new pairs.  A press inside the leap second itself is stamped as
-the following second (as a POSIX clock would).
+Jumps.  When a label disagrees with the tick count (a leap second: the
+receiver's ``23:59:60`` label is skipped because POSIX time cannot name it,
+and the next label is one second "short"; or a receiver that corrects its
+time), the fit restarts and the clock stays in holdover from the last trusted
+edge until ``MIN_PAIRS`` new pairs confirm the labels; meanwhile every stamp
+carries the size of the disagreement in its uncertainty (about 1 s at a leap
+second).
 
 Manual set (e.g. from a radio time signal): ``set_time(utc_us, unc_us)`` is
 refused while GPS-locked; afterwards u(dt) = unc_us + (3 sigma_drift_ppm +
@@ -97,7 +99,7 @@ XO = Profile("xo", 30, 4.0, 0.015, 50.0)
 class Clock:
     __slots__ = ("profile", "edges", "fit_t", "fit_l", "drift_ppm", "drift_sigma_ppm", "drift_ppt",
                  "have_drift", "anchor_tick", "anchor_utc", "manual_tick", "manual_utc", "manual_unc",
-                 "counts")
+                 "counts", "jump_us")
 
     def __init__(self, profile=TCXO):
         self.profile = profile
@@ -113,6 +115,7 @@ class Clock:
         self.manual_tick = None
         self.manual_utc = None
         self.manual_unc = 0
+        self.jump_us = 0             # size of an unconfirmed jump between labels and ticks
         self.counts = {"pps": 0, "glitch": 0, "labels": 0, "ambiguous": 0, "conflict": 0,
                        "inconsistent": 0, "pairs": 0}
 
@@ -170,9 +173,14 @@ class Clock:
                 if n <= 0:
                     self.counts["inconsistent"] += 1
                 self._restart()
-            elif abs(tick - self.fit_t[-1] - dl - self.drift_ppt * n // 1000000) > PAIR_TOL_US * n:
-                self.counts["inconsistent"] += 1
-                self._restart()
+            else:
+                miss = tick - self.fit_t[-1] - dl - self.drift_ppt * n // 1000000
+                if abs(miss) > PAIR_TOL_US * n:
+                    # labels and ticks disagree (a leap second, a receiver jump): until new pairs
+                    # confirm one side, every stamp carries the size of the disagreement
+                    self.counts["inconsistent"] += 1
+                    self.jump_us = max(self.jump_us, abs(miss))
+                    self._restart()
         self.counts["pairs"] += 1
         self.fit_t.append(tick)
         self.fit_l.append(utc_us)
@@ -185,6 +193,7 @@ class Clock:
             self.anchor_tick = tick
             self.anchor_utc = utc_us
             self.manual_tick = None
+            self.jump_us = 0
             self._fit()
 
     def _fit(self):
@@ -282,9 +291,10 @@ class Clock:
         if self.anchor_tick is not None and self.have_drift:
             dt = tick - self.anchor_tick
             utc = self.anchor_utc + self._rate_us(dt)
+            unc = self.holdover_unc_us(dt, self.profile.sigma_lock_us + self.jump_us, self.profile.wander_ppm)
             if dt <= LOCK_HOLD_US and len(self.fit_t) >= MIN_PAIRS:
-                return (utc, LOCKED, self.holdover_unc_us(dt, self.profile.sigma_lock_us, self.profile.wander_ppm))
-            return (utc, HOLDOVER, self.holdover_unc_us(dt, self.profile.sigma_lock_us, self.profile.wander_ppm))
+                return (utc, LOCKED, unc)
+            return (utc, HOLDOVER, unc)
         return (0, NONE, UNC_MAX_US)
 
     def now(self, tick_now):
