@@ -129,3 +129,6 @@ class Board(Hardware):
     def show(self, lines):
         if self.display is not None:
             self.display.show(lines)
+
+    def idle(self):
+        time.sleep_ms(1)                 # edges are captured by IRQ; 1 ms keeps NMEA pairing exact

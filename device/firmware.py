@@ -118,6 +118,7 @@ class Firmware:
     def run(self):
         while True:
             self.poll()
+            self.hw.idle()
 
     def _resolve(self, now):
         while self.pending:

@@ -59,6 +59,7 @@ class Hardware:
     ``host_write(data)``  send bytes to the host
     ``buzz(pattern)``     short acoustic acknowledgement, pattern a str like "." or ".." or "-"
     ``show(lines)``       put up to four short text lines on the display
+    ``idle()``            end of a main-loop pass (a board sleeps ~1 ms to save power)
     ``store``             the log/file store (``FileStore`` or equivalent)
     """
     ticks_period = TICKS_PERIOD
@@ -86,6 +87,10 @@ class Hardware:
         pass
 
     def show(self, lines):
+        pass
+
+    def idle(self):
+        """Called once per main-loop pass: a board may sleep a millisecond here."""
         pass
 
 

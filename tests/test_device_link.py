@@ -7,6 +7,7 @@ receive byte for byte the records the timer holds.
 """
 import binascii
 import os
+import time
 import tty
 
 import pytest
@@ -182,9 +183,9 @@ def test_real_pty_with_pyserial_and_link_faults(tmp_path):
         assert port.startswith("/dev/")
         with TimerClient(port, timeout=0.25, retries=15) as c:
             assert c.handshake()["device_id"] == "LC-SIM1"
-            st_ = c.status()
-            while st_["log"]["last_seq"] != 40:
-                st_ = c.status()
+            deadline = time.time() + 60
+            while c.status()["log"]["last_seq"] != 40:
+                assert time.time() < deadline, "the virtual timer did not press its 40 contacts"
             recs = list(c.read_log(0))
             with vt.lock:
                 truth = [r.pack() for r in vt.fw.log.records()]
