@@ -10,7 +10,7 @@ from host.errors import UserError
 
 def register(sub):
     p = sub.add_parser("sim", help="run a virtual timer on a pseudo-terminal (prints the port path first)")
-    p.add_argument("--session", required=True, help="session file whose contacts[].utc/body/limb are pressed")
+    p.add_argument("--session", required=True, metavar="FILE", help="session file whose contacts[].utc/body/limb are pressed")
     p.add_argument("--state", metavar="DIR", help="keep the timer's storage (log, files) in DIR across runs")
     p.add_argument("--link-faults", type=float, default=0.0, metavar="RATE",
                    help="fraction of link bytes dropped or corrupted in both directions (0..0.5)")
