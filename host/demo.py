@@ -25,7 +25,8 @@ should reject or diagnose it).
 
 Chain.  The contact times go to the virtual timer (``device.sim``) as button
 presses in simulated time; the host syncs its log over the pseudo-terminal
-into a fresh archive, attaches conditions, instrument and DR track to the
+(whose link damages 0.2 % of the bytes) into a fresh archive, syncs again to
+show that nothing is stored twice, attaches conditions, instrument and DR track to the
 session, reduces it (``engine.reduce_session``), stores the fix, draws the
 plotting sheet and contact timeline, writes CSV, GPX and GeoJSON, and prints
 the fix against the truth.  When the virtual timer is not available the demo
@@ -59,6 +60,7 @@ TIMING_SIGMA_S = 0.30
 ALTITUDE_SIGMA_ARCMIN = 0.40
 UNLABELLED = 3
 DEVICE_ID = "LC-DEMO-07"
+LINK_FAULTS = 0.002          # fraction of serial bytes the virtual link drops or corrupts
 
 
 _OUT = [sys.stdout]
@@ -146,11 +148,12 @@ def _sync_through_virtual_timer(session_path, state_dir, db_path, expect):
         return None
     with open(session_path, "r", encoding="utf-8") as f:
         text = f.read()
-    vt = VirtualTimer(session=text, state_dir=state_dir, device_id=DEVICE_ID)
+    vt = VirtualTimer(session=text, state_dir=state_dir, device_id=DEVICE_ID, link_faults=LINK_FAULTS, seed=SEED)
     vt.run_contacts()          # the day's presses, in simulated time
     port = vt.start()
     try:
-        say("  virtual timer %s on %s: %d presses logged" % (DEVICE_ID, port, len(vt.contacts)))
+        say("  virtual timer %s on %s: %d presses logged; the link damages %.1f %% of the bytes"
+            % (DEVICE_ID, port, len(vt.contacts), 100 * LINK_FAULTS))
         total = {"new": 0, "duplicates": 0, "device": None, "syncs": 0}
         deadline = time.time() + 20.0
         while time.time() < deadline:
@@ -165,6 +168,8 @@ def _sync_through_virtual_timer(session_path, state_dir, db_path, expect):
             if have >= expect:
                 break
             time.sleep(0.2)
+        again = sync.sync_port(port, db_path, progress=False)      # idempotent: nothing new, nothing twice
+        total["again"] = {"new": again["new"], "duplicates": again["duplicates"]}
         return total
     finally:
         vt.stop()
@@ -223,6 +228,7 @@ def _run(out_dir):
         summary["via"] = "virtual timer"
         say("  synced: %d new records, %d duplicates from timer %s" % (summary["new"], summary["duplicates"],
                                                                       summary["device"]))
+        say("  synced again: %d new, %d duplicates" % (summary["again"]["new"], summary["again"]["duplicates"]))
 
     say("step 2: the session in the archive, with conditions, instrument, DR track and the notes")
     sessions = archive.refresh_sessions(conn)

@@ -42,6 +42,7 @@ def demo(tmp_path_factory):
 def test_demo_runs_the_whole_chain(demo):
     out, human, s = demo
     assert s["sync"]["via"] == "virtual timer" and s["sync"]["new"] >= s["contacts"] >= 10
+    assert s["sync"]["again"] == {"new": 0, "duplicates": 0}
     assert s["wall_s"] < 60
     # the fix beats the dead reckoning against the scenario's truth
     assert s["error_nm"] < s["dr_error_nm"] and s["error_nm"] < 4.0
