@@ -70,6 +70,8 @@ def register(sub):
     p.add_argument("--geojson", default=None, metavar="FILE", help="GeoJSON: fixes, LOPs, 95%% ellipses, DR")
     p.add_argument("--sessions", default=None, metavar="DIR",
                    help="one limbclock-session/1 file per session with conditions attached")
+    p.add_argument("--plots", default=None, metavar="DIR",
+                   help="plotting sheet and contact timeline (PNG) of every stored fix")
     p.set_defaults(func=run_export)
 
 
@@ -312,7 +314,7 @@ def run_export(args):
     from host import exports
     conn = open_db(args)
     archive.refresh_sessions(conn)
-    written = exports.write_all(conn, args.csv, args.gpx, args.geojson, args.sessions)
+    written = exports.write_all(conn, args.csv, args.gpx, args.geojson, args.sessions, args.plots)
     if args.json:
         print(json.dumps(exports.archive_json(conn), indent=1))
         return 0
@@ -323,5 +325,6 @@ def run_export(args):
     for path in written:
         print("wrote %s" % path)
     if not written:
-        print("(give --csv DIR, --gpx FILE, --geojson FILE or --sessions DIR to write files, --json for everything)")
+        print("(give --csv DIR, --gpx FILE, --geojson FILE, --sessions DIR or --plots DIR to write files, "
+              "--json for everything)")
     return 0

@@ -304,12 +304,25 @@ def session_tracks(conn):
     return out
 
 
-def write_all(conn, csv_dir=None, gpx_path=None, geojson_path=None, sessions_dir=None):
+def write_all(conn, csv_dir=None, gpx_path=None, geojson_path=None, sessions_dir=None, plots_dir=None):
     """Write the requested files; return the list of paths written.  ``sessions_dir``: one
-    ``limbclock-session/1`` file per session whose conditions are attached."""
+    ``limbclock-session/1`` file per session whose conditions are attached; ``plots_dir``: the
+    plotting sheet and contact timeline (PNG) of every stored fix."""
     import os
     from host import archive
     written = []
+    if plots_dir:
+        from host import plots
+        os.makedirs(plots_dir, exist_ok=True)
+        for f in archive.fixes(conn):
+            s = archive.get_session(conn, f["session_id"])
+            track = json.loads(s["track"]) if s["track"] else None
+            title = "fix %d (session %d, timer %s) at %s" % (f["fix_id"], f["session_id"], s["device_id"],
+                                                             f["result"]["utc"])
+            written.append(plots.plotting_sheet(f["result"], os.path.join(plots_dir, "sheet-%d.png" % f["fix_id"]),
+                                                track=track, title="Plotting sheet: " + title))
+            written.append(plots.contact_timeline(f["result"], os.path.join(plots_dir, "timeline-%d.png" % f["fix_id"]),
+                                                  title="Contact timeline: " + title))
     if sessions_dir:
         os.makedirs(sessions_dir, exist_ok=True)
         for s in archive.sessions(conn):

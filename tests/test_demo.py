@@ -98,7 +98,9 @@ def test_archive_commands_on_the_demo_archive(demo):
     assert again["lon_deg"] == pytest.approx(s["fix"]["lon_deg"], abs=1e-6)
     assert json.loads(limbclock("session", "--db", db, "--json"))[0]["fixes"] == 2
     human = limbclock("export", "--db", db, "--csv", os.path.join(out, "again"), "--sessions",
-                      os.path.join(out, "sessions"))
+                      os.path.join(out, "sessions"), "--plots", os.path.join(out, "plots"))
+    assert sorted(os.listdir(os.path.join(out, "plots"))) == ["sheet-1.png", "sheet-2.png", "timeline-1.png",
+                                                              "timeline-2.png"]
     assert "2 fix(es)" in human and "wrote" in human
     with open(os.path.join(out, "sessions", "session-%d.json" % sid), "rb") as f:
         again_session = parse_session(f.read())          # the engine's reader accepts it
