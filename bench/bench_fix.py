@@ -14,7 +14,8 @@ Monte Carlo of the error ellipse's honesty.
    N(0, 5 %) per session; the one-sided loss of a yawed instrument, yaw N(0, 2 deg) per contact
    (``engine.instrument.yaw_loss_arcmin``; the session declares ``yaw_sigma_deg`` 2); a personal
    reaction bias U(0.1, 0.3) s late, calibrated with an error N(0, 0.05 s), and a reaction scatter
-   sigma U(0.2, 0.3) s per contact; the DR's velocity off by N(0, 0.3 kn) per component (current).
+   sigma U(0.2, 0.3) s per contact; an independent altitude scatter N(0, 0.3') per contact (judging the
+   touch in a seaway); the DR's velocity off by N(0, 0.3 kn) per component (current).
    DR 20-60 nmi off, random waters, dates 2027-2035, 6-20
    contacts: morning Sun only, Sun rising and setting, or Sun and Moon.  The accuracy claims against
    the truth rest on part 1; part 3 measures whether the 95 % ellipse holds 95 % of the truths.
@@ -193,7 +194,8 @@ def _simulate(alm, rnd, images):
         ha = p.deviation_deg - dip_arcmin(obs.eye_height_m) / 60.0
         loss = yaw_loss_arcmin(p.deviation_deg, rnd.gauss(0.0, yaw_sigma))
         delta = img_err[p.image] - dip_err - refr_scale * refraction_arcmin(ha, obs.temperature_c,
-                                                                             obs.pressure_hpa) - loss
+                                                                             obs.pressure_hpa) - loss + \
+            rnd.gauss(0.0, 0.3)     # judging the touch in a seaway, horizon flicker
         t_true = p.t_us + int(delta / p.rate_arcmin_per_s * 1e6)
         t_obs = t_true + int((bias_s + rnd.gauss(0.0, scatter_s)) * 1e6)
         contacts.append({"utc": timescale.format_utc(t_obs, 3), "body": p.body, "limb": p.limb, "image": p.image})

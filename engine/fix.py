@@ -32,6 +32,11 @@ largest errors are shared between contacts):
   ``velocity_sigma_kn`` (default 0.3 kn per component; ``track.velocity_sigma_kn``
   of the session; 0 for a known track) moves the line of a contact taken dt
   before the epoch by dv dt along Zn: covariance sigma_v^2 dt_i dt_j cos(Zn_i - Zn_j);
+* the contact itself: judging the instant a limb touches a sea horizon in a
+  seaway, with the horizon's short-term refraction flicker, scatters each
+  contact independently by ``sigma_contact_arcmin`` of altitude (default 0.3';
+  common practice for a careful observer, [from memory]; the session's
+  ``observer.contact_sigma_arcmin`` overrides it);
 * yaw (instrument turned off the body's azimuth by psi, sigma
   ``observer.yaw_sigma_deg`` of the session, default 0: the observer swings the
   arc): the contact comes late by a one-sided loss; its mean is taken off the
@@ -90,7 +95,8 @@ STALLED_QUAD = 1e-3                # ... or no longer shrinking below 0.03 sigma
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
 PRESCREEN_K = 5.0                  # robust first pass: gross blunders beyond 5 robust sigma are dropped
 DEFAULTS = {"sigma_time_s": 0.25, "sigma_image_arcmin": 1.0, "kappa": 0.05, "sigma_dip_arcmin": 1.0,
-            "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0, "velocity_sigma_kn": 0.3}
+            "reaction_delay_sigma_s": 0.2, "yaw_sigma_deg": 0.0, "velocity_sigma_kn": 0.3,
+            "sigma_contact_arcmin": 0.3}
 
 
 class FixError(ValueError):
@@ -240,6 +246,8 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     opt = dict(DEFAULTS)
     if "yaw_sigma_deg" in session.observer_extra:
         opt["yaw_sigma_deg"] = session.observer_extra["yaw_sigma_deg"]
+    if "contact_sigma_arcmin" in session.observer_extra:
+        opt["sigma_contact_arcmin"] = session.observer_extra["contact_sigma_arcmin"]
     if options:
         opt.update(options)
     contacts = session.contacts
@@ -285,7 +293,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         ha = dev - dip_arcmin(obs.eye_height_m) / 60.0
         ln.refr = refraction_arcmin(ha, obs.temperature_c, obs.pressure_hpa)
         st2 = opt["sigma_time_s"] ** 2 + c.sigma_s ** 2
-        ln.var_ind = ln.rate * ln.rate * st2 + yaw_rms * yaw_rms
+        ln.var_ind = ln.rate * ln.rate * st2 + yaw_rms * yaw_rms + opt["sigma_contact_arcmin"] ** 2
         lines.append(ln)
 
     sig_img = {}

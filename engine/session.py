@@ -15,6 +15,8 @@ Optional keys with defaults: ``observer.temperature_c`` (10), ``observer.pressur
 ``contacts[].void`` (false: a void contact is kept but never used),
 ``observer.yaw_sigma_deg`` (how far, 1 sigma, the observer holds the instrument
 turned off the body's azimuth; default 0: swinging the arc, or calibrated away),
+``observer.contact_sigma_arcmin`` (independent altitude scatter of each contact;
+default 0.3', see engine/fix.py),
 ``instrument.reaction_delay_s`` and ``instrument.reaction_delay_sigma_s`` (the
 calibrated personal equation, as in ``limbclock-instrument/1`` files; null = not
 calibrated), ``track.velocity_sigma_kn`` (uncertainty of the DR's course and speed,
@@ -211,6 +213,8 @@ def session_from_dict(data, alm=None, need_contacts=True):
             observer_extra[key] = o[key]
     if "yaw_sigma_deg" in o:
         observer_extra["yaw_sigma_deg"] = _number(o, "yaw_sigma_deg", "observer", 0.0, 10.0)
+    if "contact_sigma_arcmin" in o:
+        observer_extra["contact_sigma_arcmin"] = _number(o, "contact_sigma_arcmin", "observer", 0.0, 30.0)
 
     inst = _obj(data, "instrument")
     if "images" not in inst:
