@@ -16,12 +16,13 @@ hold time       gesture      effect
 1 s .. 3 s      ``void``     voids the last contact (a new VOID record)
 3 s .. 5 s      ``mode``     next body/limb: sun lower, sun upper, moon lower, moon upper
 5 s .. 8 s      ``session``  starts a new session
-> 8 s           ``cancel``   nothing (a way out of a held press)
+8 s .. 11 s     ``fix``      reduces the current session on board (``device/onboard.py``)
+> 11 s          ``cancel``   nothing (a way out of a held press)
 ==============  ===========  ===============================================
 """
 DEBOUNCE_US = 20000
-STEPS_US = (1000000, 3000000, 5000000, 8000000)
-GESTURES = ("contact", "void", "mode", "session", "cancel")
+STEPS_US = (1000000, 3000000, 5000000, 8000000, 11000000)
+GESTURES = ("contact", "void", "mode", "session", "fix", "cancel")
 
 
 def classify(hold_us):

@@ -9,6 +9,12 @@ A press becomes a record once its time is known (next PPS edge, or
 ``clock.WAIT_US`` later from the learned rate) and written; only then does the
 timer beep and show it.  Settings that must survive a reset and an emptied
 log (session number, body, limb) live in ``state.json``, replaced atomically.
+
+Display: four status lines, then two lines from ``device.onboard``: the next predicted contact
+and its countdown (recomputed only when needed), or for ``FIX_SHOW_US`` after the ``fix``
+gesture the on-board fix and its ellipse.  The reduction runs inside one pass of the loop (a few
+seconds on a board: presses are still stamped by the edge interrupt; a GPS label or two may be
+dropped as ambiguous).
 """
 import json
 
@@ -18,19 +24,22 @@ from device.button import Button
 from device.hal import TickExtender
 from device.log import Log, LogError, LogFull, CONTACT, VOID, SESSION, SETTINGS, TIME_SET, BODY_NAMES, LIMB_NAMES
 from device.nmea import Parser
+from device.onboard import Onboard, iter_records
 from device.protocol import Protocol
 from engine.timescale import format_utc
 
 MODES = ((0, 0), (0, 1), (1, 0), (1, 1))      # (body, limb): sun lower, sun upper, moon lower, moon upper
 STATE_FILE = "state.json"
+FIX_SHOW_US = 60000000        # the fix stays on the display this long (then the next contact again)
 
 
 class Firmware:
     __slots__ = ("hw", "ticks", "nmea", "clock", "button", "log", "proto", "device_id", "firmware_version",
                  "session", "body", "limb", "pending", "message", "fault", "lines", "file_capacity",
-                 "last_contact", "voided", "hint", "store", "display_due", "dirty")
+                 "last_contact", "voided", "hint", "store", "display_due", "dirty", "onboard", "fix_until")
 
-    def __init__(self, hw, device_id="LC-0001", capacity=65536, profile=clk.TCXO, file_capacity=262144):
+    def __init__(self, hw, device_id="LC-0001", capacity=65536, profile=clk.TCXO, file_capacity=262144,
+                 data_dir=None):
         self.hw = hw
         self.store = hw.store
         self.device_id = device_id
@@ -60,6 +69,8 @@ class Firmware:
             self.message = "recovered: %d torn bytes dropped" % self.log.recovered_bytes
         self._scan_voids()
         self.proto = Protocol(self)
+        self.onboard = Onboard(self.store, data_dir)
+        self.fix_until = -1
 
     # -- persistent settings ------------------------------------------------
     def _load_state(self):
@@ -108,6 +119,7 @@ class Firmware:
             self.hint = hint
             self.dirty = True
         self._resolve(now)
+        self._plan(now)
         data = hw.host_read()
         out = self.proto.feed(data) if data else self.proto.idle(now)
         if out:
@@ -151,6 +163,8 @@ class Firmware:
                 self._save_state()
                 log.append(SETTINGS, utc_us, state, unc, self.body, self.limb, self.session)
                 self._ack("..", "now %s %s limb" % (BODY_NAMES[self.body], LIMB_NAMES[self.limb]))
+            elif gesture == "fix":
+                self._reduce()
             elif gesture == "session":
                 self.session = (self.session + 1) & 0xFFFF
                 self._save_state()
@@ -163,6 +177,30 @@ class Firmware:
             self.message = "LOG FULL: SYNC! not saved"
             self.fault = str(e)
             self.dirty = True
+
+    def _plan(self, now):
+        """Keep the next predicted contact (``Onboard.update`` recomputes only when needed)."""
+        utc, state, _ = self.clock.now(now)
+        if state == clk.NONE:
+            return
+        try:
+            changed = self.onboard.update(utc, self.body * 2 + self.limb, LIMB_NAMES[self.limb])
+        except MemoryError:
+            self.onboard.problem = "no memory for the plan"
+            changed = True
+        if changed:
+            self.dirty = True
+
+    def _reduce(self):
+        """The ``fix`` gesture: reduce the current session on board and show the result for a minute."""
+        self.hw.show((self.lines or ["", "", "", ""])[:4] + ["FIX: reducing", "session %d ..." % self.session])
+        log = self.log
+        fix = self.onboard.reduce(lambda: iter_records(log), self.session)
+        self.fix_until = self.now() + FIX_SHOW_US
+        if fix is None:
+            self._ack("-", "fix failed")
+        else:
+            self._ack("...", "FIX %d used %d rej" % (fix["contacts_used"], fix["rejected"]))
 
     def _ack(self, pattern, message):
         self.hw.buzz(pattern)
@@ -179,6 +217,7 @@ class Firmware:
             pass
 
     def files_changed(self, slot):
+        self.onboard.files_changed()
         self.message = "file %s received" % slot
         self.dirty = True
 
@@ -194,7 +233,9 @@ class Firmware:
                         "free_bytes": log.free_bytes, "capacity_bytes": log.capacity,
                         "recovered_bytes": log.recovered_bytes},
                 "session": self.session, "body": BODY_NAMES[self.body], "limb": LIMB_NAMES[self.limb],
-                "pending": len(self.pending), "fault": self.fault, "display": self.lines or []}
+                "pending": len(self.pending), "fault": self.fault, "display": self.lines or [],
+                "next_contact": self.onboard.next, "plan_problem": self.onboard.problem,
+                "onboard_fix": self.onboard.fix, "onboard_fix_error": self.onboard.fix_error}
 
     def _display(self, now):
         """Refresh the display lines: at most every 100 ms, or at once after an event."""
@@ -214,7 +255,10 @@ class Firmware:
             l4 = "release: %s" % self.hint
         else:
             l4 = self.message
-        lines = [l1, l2, l3, l4]
+        if now < self.fix_until:
+            lines = [l1, l2, l3, l4] + self.onboard.fix_lines()
+        else:
+            lines = [l1, l2, l3, l4] + self.onboard.plan_lines(utc if state != clk.NONE else None)
         if lines != self.lines:
             self.lines = lines
             self.hw.show(lines)

@@ -40,8 +40,8 @@ class SimError(ValueError):
     """A session or option the virtual timer cannot use."""
 
 
-def read_contacts(session):
-    """[(utc_us, body, limb)] from a session file path, JSON text or dict (only ``contacts``)."""
+def read_session(session):
+    """The session document (a dict) from a file path, JSON text or dict."""
     if isinstance(session, dict):
         doc = session
     else:
@@ -53,6 +53,27 @@ def read_contacts(session):
             doc = json.loads(text)
         except ValueError as e:
             raise SimError("session is not JSON: %s" % e)
+    return doc
+
+
+def conditions_files(doc):
+    """``{slot: bytes}`` for the timer's ``instrument`` and ``track`` slots from a session document:
+    what ``limbclock push`` would send (a ``limbclock-instrument/1`` file; a ``limbclock-track/1``
+    file with the observer)."""
+    from device.onboard import track_file
+    from engine.instrument import FORMAT
+    inst = doc.get("instrument") if isinstance(doc, dict) else None
+    if not isinstance(inst, dict) or not isinstance(doc.get("track"), dict):
+        raise SimError("session: needs 'instrument' and 'track' objects to load them on the timer")
+    d = {"format": FORMAT}
+    for k in inst:
+        d[k] = inst[k]
+    return {"instrument": json.dumps(d).encode(), "track": track_file(doc["track"], doc.get("observer"))}
+
+
+def read_contacts(session):
+    """[(utc_us, body, limb)] from a session file path, JSON text or dict (only ``contacts``)."""
+    doc = read_session(session)
     contacts = doc.get("contacts") if isinstance(doc, dict) else None
     if not isinstance(contacts, list):
         raise SimError("session: 'contacts' must be a list")
@@ -113,8 +134,9 @@ class VirtualTimer:
                  drift_ppm=1.3, wander_ppm=0.0, aging_ppm_per_day=0.0, profile=clk.TCXO, outages=(),
                  power_cut_at_us=None, power_cut_after_bytes=None, restart_after_us=3000000,
                  display_file=None, display_stderr=False, capacity=65536, ticks_period=TICKS_PERIOD,
-                 start_us=None, device_id="LC-SIM1", press_us=120000):
+                 start_us=None, device_id="LC-SIM1", press_us=120000, conditions=False, fix_at_us=None):
         self.contacts = list(contacts or []) if session is None else read_contacts(session)
+        files = conditions_files(read_session(session)) if conditions and session is not None else {}
         self.state_dir = state_dir
         self.progress_path = None
         self.already_pressed = 0
@@ -134,6 +156,8 @@ class VirtualTimer:
             start_us = (self.contacts[0][0] if self.contacts else int(time.time()) * 1000000) - LEAD_US
         self.start_us = start_us
         self.base_store = FileStore(os.path.join(state_dir, "flash")) if state_dir else MemStore()
+        for slot in files:                   # as if pushed by the host before the session
+            self.base_store.replace("slot_" + slot, files[slot])
         self.faults_in = Faults(link_faults, seed)
         self.faults_out = Faults(link_faults, seed + 1)
         self.speed = speed
@@ -157,6 +181,10 @@ class VirtualTimer:
         self._boot(self.power_cut_after_bytes)
         self._plan_presses()
         self.end_contacts_us = max([c[0] for c in self.contacts] + [start_us]) + 5000000
+        self.fix_at_us = fix_at_us
+        if fix_at_us is not None:
+            self.press_fix(fix_at_us)
+            self.end_contacts_us = max(self.end_contacts_us, fix_at_us + 15000000)
         self._thread = None
         self._stop = threading.Event()
         self._master = self._slave = None
@@ -189,6 +217,10 @@ class VirtualTimer:
                 self.world.press(utc - 10000000 - (k - j) * 7000000, 3500000)
             mode = want
             self.world.press(utc, self.press_us)
+
+    def press_fix(self, t_us, hold_us=9500000):
+        """Hold the button for the ``fix`` gesture (8-11 s) from true UTC ``t_us``."""
+        self.world.press(t_us, hold_us)
 
     # -- running ----------------------------------------------------------------
     def advance_to(self, t_us):
@@ -249,7 +281,8 @@ class VirtualTimer:
             with open(self.display_file, "w") as f:
                 f.write("\n".join(lines) + "\n")
         if self.display_stderr:
-            key = (lines[0].split()[0], lines[2], lines[3])     # not every tick of the clock line
+            # not every tick of the clock line nor of the countdown
+            key = (lines[0].split()[0], lines[2], lines[3]) + tuple(x for x in lines[4:] if not x.startswith("in "))
             if key != self._shown:
                 self._shown = key
                 sys.stderr.write("[timer] %s\n" % " | ".join(lines))

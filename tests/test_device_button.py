@@ -29,13 +29,14 @@ def press(b, t0, hold_us, bounce_us=(), poll_every=None):
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.integers(30000, 12000000), st.lists(st.integers(100, 5000), max_size=4, unique=True),
+@given(st.integers(30000, 14000000), st.lists(st.integers(100, 5000), max_size=4, unique=True),
        st.booleans())
 def test_gesture_by_hold_time_stamped_at_first_edge(hold_us, bounces, poll_often):
     b = Button()
     got = press(b, 10 ** 9, hold_us, sorted(bounces), poll_often)
     expect = ("contact" if hold_us < 1000000 else "void" if hold_us < 3000000 else
-              "mode" if hold_us < 5000000 else "session" if hold_us < 8000000 else "cancel")
+              "mode" if hold_us < 5000000 else "session" if hold_us < 8000000 else
+              "fix" if hold_us < 11000000 else "cancel")
     assert got == [(expect, 10 ** 9)]
 
 
@@ -55,7 +56,7 @@ def test_hint_while_held():
 
 
 @settings(max_examples=8, deadline=None)
-@given(st.lists(st.sampled_from([120000, 400000, 1500000, 3600000, 6000000, 9000000]), min_size=1, max_size=6))
+@given(st.lists(st.sampled_from([120000, 400000, 1500000, 3600000, 6000000, 9000000, 11500000]), min_size=1, max_size=6))
 def test_gestures_through_the_whole_firmware(holds):
     from device import log as L
     from device.sim import VirtualTimer
@@ -71,7 +72,7 @@ def test_gestures_through_the_whole_firmware(holds):
     seq = 0
     for h in holds:
         g = ("contact" if h < 1000000 else "void" if h < 3000000 else "mode" if h < 5000000 else
-             "session" if h < 8000000 else "cancel")
+             "session" if h < 8000000 else "fix" if h < 11000000 else "cancel")
         if g == "contact":
             seq += 1
             last = seq
