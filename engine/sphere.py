@@ -69,8 +69,13 @@ def dr_position(lat_deg, lon_deg, course_deg, speed_kn, dt_us):
 
 def move_nm(lat_deg, lon_deg, north_nm, east_nm):
     """Position offset by ``north_nm`` and ``east_nm`` in the local plane at the
-    point (mid-latitude departure).  Inverse of ``offset_nm``."""
+    point (mid-latitude departure).  Inverse of ``offset_nm`` (away from the
+    poles: like ``dr_position`` the latitude is held within +-89.9 deg)."""
     lat2 = lat_deg + north_nm / 60.0
+    if lat2 > 89.9:
+        lat2 = 89.9
+    elif lat2 < -89.9:
+        lat2 = -89.9
     return lat2, norm180(lon_deg + east_nm / (60.0 * cosd(0.5 * (lat_deg + lat2))))
 
 
