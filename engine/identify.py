@@ -57,6 +57,7 @@ DEFAULT_TIME_SIGMA_S = 0.25
 DEFAULT_CONFIDENCE = 0.99
 MAX_GRID_POINTS = 1600
 REFINE_TOP = 8
+KEEP_HYPOTHESES = 4 * REFINE_TOP      # grid-search assignments held at once (>= REFINE_TOP)
 
 
 class IdentifyError(ValueError):
@@ -186,16 +187,22 @@ def _refine(p, assign, north, east, iterations=5):
 
 
 def _grid(radius_nm, step_nm):
+    """(n, step_nm): half-width in steps and the step of the search grid (at most
+    ``MAX_GRID_POINTS`` points in its square)."""
     n = int(radius_nm / step_nm)
     while (2 * n + 1) ** 2 > MAX_GRID_POINTS:
         step_nm *= 1.25
         n = int(radius_nm / step_nm)
-    pts = []
+    return n, step_nm
+
+
+def _grid_points(n, step_nm, radius_nm):
+    """The grid points (north, east) within ``radius_nm``, one at a time: a list of them
+    would be the largest object of a reduction on a board's heap."""
     for i in range(-n, n + 1):
         for j in range(-n, n + 1):
             if (i * i + j * j) * step_nm * step_nm <= radius_nm * radius_nm * 1.0001:
-                pts.append((i * step_nm, j * step_nm))
-    return pts, step_nm
+                yield (i * step_nm, j * step_nm)
 
 
 def _min_spacing_arcmin(images):
@@ -209,15 +216,28 @@ def _hypotheses(p, radius_nm, step_nm=None):
     spacing = _min_spacing_arcmin(p.images)
     if step_nm is None:
         step_nm = min(30.0, max(5.0, spacing / 3.0))
-    pts, step_nm = _grid(radius_nm, step_nm)
+    n, step_nm = _grid(radius_nm, step_nm)
     w0 = 1.0 / (p.dr_sigma * p.dr_sigma)
     best = {}
-    for north, east in pts:
+    for north, east in _grid_points(n, step_nm, radius_nm):
         assign, cost = _assign_at(p, _offset_positions(p, north, east), 0.5 * step_nm)
         cost += (north * north + east * east) * w0
         if assign not in best or cost < best[assign][0]:
             best[assign] = (cost, north, east)
+            if len(best) > 2 * KEEP_HYPOTHESES:
+                best = _prune(best)
     return best
+
+
+def _prune(best):
+    """Keep the ``KEEP_HYPOTHESES`` cheapest assignments.  Only the ``REFINE_TOP`` cheapest are
+    used, and an assignment dropped here is outranked by at least ``KEEP_HYPOTHESES`` others for
+    good (their costs only fall), so the result is the same with a bounded heap."""
+    kept = sorted(best.items(), key=lambda kv: kv[1][0])[:KEEP_HYPOTHESES]
+    out = {}
+    for k, v in kept:
+        out[k] = v
+    return out
 
 
 def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_CONFIDENCE):

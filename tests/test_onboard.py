@@ -1,0 +1,273 @@
+"""The timer plans and reduces on its own (device/onboard.py, the ``fix`` gesture, status).
+
+References: the noise-free sessions of ``vectors/sessions`` (contact times from JPL DE421 + ERFA exact
+topocentric geometry; ``truth`` = the true position at the last contact) and
+``vectors/schedule_contacts.json`` (every contact of each image from the same independent pipeline,
+roots bisected to 1 ms).  The planner on the timer must name the contact ``engine.plan.schedule``
+finds (computed here on its own), which the reference places within 1 s.
+"""
+import json
+import os
+
+import pytest
+
+from device import onboard
+from device.button import classify
+from device.onboard import Onboard, OnboardError, parse_track, track_file
+from device.sim import VirtualTimer, conditions_files
+from device.simhw import MemStore
+from engine import almanac, identify, plan
+from engine.angles import fmt_lat, fmt_lon
+from engine.model import Observer, Track
+from engine.session import parse_session
+from engine.sphere import distance_nm
+from engine.timescale import format_utc, parse_utc
+from host.timer_client import TimerClient
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+SESSIONS = os.path.join(ROOT, "vectors", "sessions")
+with open(os.path.join(ROOT, "vectors", "schedule_contacts.json")) as _f:
+    SCHEDULE = json.load(_f)
+ALM = almanac.load()
+
+
+def load(name):
+    with open(os.path.join(SESSIONS, name + ".json")) as f:
+        return json.load(f)
+
+
+def last_utc(doc):
+    return max(parse_utc(c["utc"]) for c in doc["contacts"])
+
+
+def test_fix_gesture_band():
+    # device/PROTOCOL.md: 8-11 s = fix, beyond = cancel; the bands below are unchanged
+    assert [classify(h) for h in (7999999, 8000000, 10999999, 11000000)] == ["session", "fix", "fix", "cancel"]
+
+
+@pytest.mark.parametrize("name", ["morning_run", "station_sun"])
+def test_virtual_timer_fix_within_0_3_nmi_of_truth(name):
+    doc = load(name)
+    vt = VirtualTimer(session=doc, conditions=True, fix_at_us=last_utc(doc) + 20000000)
+    vt.run_contacts()
+    st = TimerClient(vt.loopback(faults=0.0)).status()
+    fix = st["onboard_fix"]
+    assert st["onboard_fix_error"] is None and fix is not None
+    truth = doc["truth"]
+    assert fix["utc"][:19] == truth["utc"][:19]               # the fix is for the last contact
+    assert distance_nm(fix["lat_deg"], fix["lon_deg"], truth["lat_deg"], truth["lon_deg"]) < 0.3
+    assert fix["contacts"] == len(doc["contacts"]) and fix["contacts_used"] + fix["rejected"] == fix["contacts"]
+    # the display shows it, degrees-minutes, with the ellipse, for a minute after the gesture
+    lines = st["display"]
+    assert lines[3] == "FIX %d used %d rej" % (fix["contacts_used"], fix["rejected"])
+    assert lines[4] == "%s %s" % (fmt_lat(fix["lat_deg"]), fmt_lon(fix["lon_deg"]))
+    assert lines[5].startswith("95%% %.1fx" % fix["ellipse_95"]["major_nm"])
+    vt.advance_to(vt.world.t_us + onboard_show_s() * 1000000 + 2000000)
+    assert vt.fw.lines[4].startswith("NEXT")
+
+
+def onboard_show_s():
+    from device.firmware import FIX_SHOW_US
+    return FIX_SHOW_US // 1000000
+
+
+def test_onboard_session_is_the_log_minus_voided_contacts():
+    doc = load("morning_run")
+    doc["contacts"] = doc["contacts"][:10]
+    t_void = parse_utc(doc["contacts"][4]["utc"]) + 20000000
+    vt = VirtualTimer(session=doc, conditions=True)
+    vt.world.press(t_void, 1500000)                      # 1-3 s hold: void contact #5 (the 5th press)
+    vt.run_contacts()
+    from device.onboard import iter_records
+    text = vt.fw.onboard.session_text(lambda: iter_records(vt.fw.log), vt.fw.session)
+    s = parse_session(text, ALM)
+    want = [parse_utc(c["utc"]) for k, c in enumerate(doc["contacts"]) if k != 4]
+    assert len(s.contacts) == 9
+    assert all(abs(c.t_us - t) <= 1000 for c, t in zip(s.contacts, want))          # stamps within 1 ms
+    assert s.observer.eye_height_m == doc["observer"]["eye_height_m"]
+    assert s.track.t0_us == parse_utc(doc["track"]["utc"]) and s.track.speed_kn == doc["track"]["speed_kn"]
+    assert [c.image for c in s.contacts] == [None] * 9 and all(c.sigma_s < 0.001 for c in s.contacts)
+
+
+def scenario_timer(sc, start_us):
+    sess = {"format": "limbclock-session/1", "observer": sc["observer"],
+            "instrument": {"images": SCHEDULE["images"]}, "track": sc["track"], "contacts": []}
+    return VirtualTimer(session=sess, conditions=True, start_us=start_us)
+
+
+def countdown_s(line):
+    mmss = line.split()[1]
+    m, s = mmss.split(":")
+    return int(m) * 60 + int(s)
+
+
+def test_next_contact_is_the_scheduled_one_and_the_reference_one():
+    sc = SCHEDULE["scenarios"][0]
+    tr, o = sc["track"], sc["observer"]
+    track = Track(parse_utc(tr["utc"]), tr["lat_deg"], tr["lon_deg"], tr["course_deg"], tr["speed_kn"])
+    ob = Observer(o["eye_height_m"], o["temperature_c"], o["pressure_hpa"])
+    images = [(i["id"], i["deviation_deg"]) for i in SCHEDULE["images"]]
+    ref_lower = [c for c in sc["contacts"] if c["limb"] == "lower"]
+    first = parse_utc(ref_lower[0]["utc"])
+    vt = scenario_timer(sc, first - 40 * 60 * 1000000)
+    checked = 0
+    for t in (first - 30 * 60 * 1000000, first + 60 * 1000000, first + 20 * 60 * 1000000):
+        vt.advance_to(t)
+        got = vt.fw.onboard.next
+        mine = plan.schedule(ALM, images, track, ob, t, t + 6 * 3600 * 1000000, limbs=("lower",))[0]
+        # the same root, found from the timer's own (earlier) planning instant: within the tolerance
+        assert (got["image"], got["body"], got["direction"]) == (mine.image, mine.body, mine.direction)
+        assert abs(got["t_us"] - mine.t_us) <= plan.DEFAULT_TOL_US
+        ref = [c for c in ref_lower if parse_utc(c["utc"]) > t][0]
+        assert ref["body"] == "sun"                                          # the scenario, as chosen
+        assert (got["image"], got["body"], got["direction"]) == (ref["image"], ref["body"], ref["direction"])
+        assert abs(got["t_us"] - parse_utc(ref["utc"])) < 1000000            # reference: DE421 + ERFA
+        assert abs(got["zn_deg"] - ref["zn_deg"]) < 0.1
+        lines = vt.fw.lines
+        assert lines[4] == "NEXT %s SUN LL %s" % (ref["image"], "rise" if ref["direction"] == "rising" else "set")
+        assert abs(countdown_s(lines[5]) - (got["t_us"] - t) / 1e6) <= 1.5
+        assert lines[5].endswith("Zn %03d" % int(ref["zn_deg"] + 0.5))
+        checked += 1
+    assert checked == 3
+
+
+def test_plan_follows_the_limb_setting():
+    sc = SCHEDULE["scenarios"][0]
+    ref_upper = [c for c in sc["contacts"] if c["limb"] == "upper" and c["body"] == "sun"]
+    t0 = parse_utc(ref_upper[0]["utc"]) - 20 * 60 * 1000000
+    vt = scenario_timer(sc, t0 - 60000000)
+    vt.world.press(t0, 3500000)                          # 3-5 s: sun lower -> sun upper
+    vt.advance_to(t0 + 10000000)
+    got = vt.fw.onboard.next
+    assert got["limb"] == "upper" and abs(got["t_us"] - parse_utc(ref_upper[0]["utc"])) < 1000000
+    assert vt.fw.lines[4].startswith("NEXT %s SUN UL" % ref_upper[0]["image"])
+
+
+def test_recomputes_only_when_needed(monkeypatch):
+    sc = SCHEDULE["scenarios"][0]
+    first = parse_utc(sc["contacts"][0]["utc"])
+    vt = scenario_timer(sc, first - 30 * 60 * 1000000)
+    calls = []
+    real = plan.next_contact
+
+    def counting(*a, **k):
+        calls.append(a[4])
+        return real(*a, **k)
+    monkeypatch.setattr(plan, "next_contact", counting)
+    vt.advance_to(first - 10 * 60 * 1000000)               # 20 min: the first plan, then every 5 min
+    assert 4 <= len(calls) <= 5
+    assert all(b - a >= onboard.PLAN_EVERY_US for a, b in zip(calls, calls[1:]))
+
+
+def test_problems_are_short_messages_not_crashes():
+    doc = load("morning_run")
+    t = parse_utc(doc["contacts"][0]["utc"])
+    vt = VirtualTimer(contacts=[], start_us=t - 60000000)
+    vt.press_fix(t)
+    vt.advance_to(t + 20000000)
+    st = vt.fw.status()
+    assert vt.fw.lines[3] == "fix failed" and st["onboard_fix_error"] == "no instrument: push it"
+    assert st["plan_problem"] == "no instrument: push it" and st["next_contact"] is None
+    # push the files over the link: the plan appears without a restart
+    c = TimerClient(vt.loopback(faults=0.0))
+    files = conditions_files(doc)
+    c.push_file("instrument", files["instrument"])
+    assert TimerClient(vt.loopback(faults=0.0)).status()["plan_problem"] == "no track: push it"
+    c.push_file("track", files["track"])
+    st = c.status()
+    assert st["plan_problem"] is None and st["next_contact"]["limb"] == "lower"
+    # two contacts only
+    vt.press_fix(vt.world.t_us + 1000000)
+    vt.advance_to(vt.world.t_us + 15000000)
+    assert vt.fw.onboard.fix_error == "0 contact(s): need 3"
+
+
+def test_track_without_observer_plans_but_does_not_fix():
+    doc = load("morning_run")
+    doc["contacts"] = doc["contacts"][:4]
+    vt = VirtualTimer(session=doc, conditions=True, fix_at_us=last_utc(doc) + 20000000)
+    vt.base_store.replace("slot_track", json.dumps(doc["track"]).encode())      # as `limbclock push --track`
+    vt.fw.files_changed("track")
+    vt.run_contacts()
+    assert vt.fw.onboard.problem is None and vt.fw.onboard.next is not None
+    assert vt.fw.onboard.fix_error == "no eye height: push track+observer"
+
+
+def test_outside_the_almanac():
+    store = MemStore()
+    doc = load("morning_run")
+    files = conditions_files(doc)
+    store.replace("slot_instrument", files["instrument"])
+    tr = dict(doc["track"], utc="2052-01-01T00:00:00Z")
+    store.replace("slot_track", track_file(tr, doc["observer"]))
+    ob = Onboard(store)
+    assert ob.update(parse_utc("2052-01-01T06:00:00Z"), 0, "lower")
+    assert ob.problem.startswith("plan: instant 2052-01-01T") and "outside the almanac" in ob.problem
+
+
+def test_pushed_almanac_year_is_used(tmp_path):
+    # an empty shipped directory: only the pushed 2030 file is there
+    store = MemStore()
+    with open(os.path.join(ROOT, "engine", "data", "2030.lca"), "rb") as f:
+        store.replace("slot_almanac", f.read())
+    alm = onboard.load_almanac(store, data_dir=str(tmp_path))
+    assert alm.years == [2030]
+    t = parse_utc("2030-10-20T19:00:00Z")
+    a, b = alm.position("moon", t), ALM.position("moon", t)
+    assert (a.gha_deg, a.dec_deg, a.hp_arcmin) == (b.gha_deg, b.dec_deg, b.hp_arcmin)
+    with pytest.raises(ValueError, match="outside the almanac"):
+        alm.position("sun", parse_utc("2031-01-01T00:00:01Z"))
+    with pytest.raises(ValueError):
+        onboard.load_almanac(MemStore(), data_dir=str(tmp_path))
+
+
+@pytest.mark.parametrize("data, message", [
+    (b"{", "track file: not JSON"),
+    (b'{"format": "limbclock-track/9"}', "format 'limbclock-track/9'"),
+    (b'{"utc": "2030-10-20T18:00:00Z", "lat_deg": 95, "lon_deg": 1}', "track.lat_deg: 95.0 outside"),
+    (b'{"utc": "2030-10-20T18:00:00Z", "lat_deg": 5, "lon_deg": 1, "observer": {"eye_height_m": -1}}',
+     "observer.eye_height_m"),
+    (b'{"lat_deg": 5, "lon_deg": 1}', "track.utc: missing"),
+])
+def test_track_file_errors(data, message):
+    with pytest.raises(OnboardError, match=message.replace("(", r"\(").replace(".", r"\.")):
+        parse_track(data)
+
+
+def test_track_file_round_trip():
+    doc = load("sun_moon")
+    track, observer = parse_track(track_file(doc["track"], doc["observer"]))
+    assert track == doc["track"] and observer == doc["observer"]
+
+
+@pytest.mark.parametrize("name", ["morning_run", "sun_moon"])
+def test_identify_search_bounded_heap_gives_the_same_hypotheses(monkeypatch, name):
+    # engine.identify prunes its grid-search table to KEEP_HYPOTHESES; the REFINE_TOP it uses must be
+    # those of the unpruned search (the contacts are stripped of their images so all are searched)
+    doc = load(name)
+    for c in doc["contacts"]:
+        c["image"] = None
+    s = parse_session(json.dumps(doc), ALM)
+    p = identify._setup(s, ALM, None)
+    radius = 4.0 * p.dr_sigma + 60.0
+
+    def top(h):
+        return sorted(h.items(), key=lambda kv: kv[1][0])[:identify.REFINE_TOP]
+    default = top(identify._hypotheses(p, radius))
+    monkeypatch.setattr(identify, "KEEP_HYPOTHESES", identify.REFINE_TOP)    # the tightest it may be
+    pruned = top(identify._hypotheses(p, radius))
+    monkeypatch.setattr(identify, "KEEP_HYPOTHESES", 10 ** 9)
+    full = identify._hypotheses(p, radius)
+    assert len(full) > 2 * identify.REFINE_TOP                      # the pruning did happen above
+    assert pruned == top(full) and default == top(full)
+
+
+def test_status_json_carries_the_next_contact_dict():
+    sc = SCHEDULE["scenarios"][0]
+    first = parse_utc(sc["contacts"][0]["utc"])
+    vt = scenario_timer(sc, first - 30 * 60 * 1000000)
+    vt.advance_to(first - 20 * 60 * 1000000)
+    st = TimerClient(vt.loopback(faults=0.0)).status()
+    nc = st["next_contact"]
+    assert set(nc) >= {"utc", "body", "limb", "image", "direction", "zn_deg"}
+    assert nc["utc"] == format_utc(nc["t_us"], 1)
