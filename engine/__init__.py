@@ -11,12 +11,18 @@ blunders), ``instrument``, ``plan``, ``identify``, ``calibrate``.
 """
 
 
-def reduce_session(text, alm=None, at_us=None, deviation_offset="auto"):
+def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=True):
     """Reduce a ``limbclock-session/1`` text to the ``limbclock-fix/1`` dict that
     ``limbclock fix --json`` prints: validate the session (against the almanac's
     span), identify contacts whose image is null (``engine.identify``, when
-    present), then compute the fix (``engine.fix.solve_fix``).  ``alm`` defaults
-    to the shipped almanac.  Raises ``ValueError`` subclasses on bad input."""
+    present), then compute the fix (``engine.fix.solve_fix``).
+
+    With ``relabel`` (default), a contact rejected as a blunder that fits another
+    image (or the other limb) within 3 sigma at the fix is read as that image
+    and the fix is solved again; the relabelling is kept only when the contact
+    is then accepted, and its ``reason`` and the warnings say so (the label the
+    navigator wrote is kept in ``labelled``).  ``alm`` defaults to the shipped
+    almanac.  Raises ``ValueError`` subclasses on bad input."""
     from engine import session as _session
     from engine import fix as _fix
     if alm is None:
@@ -32,5 +38,42 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto"):
         if _identify is not None:
             warnings = _identify.identify_session(s, alm) or []
     result = _fix.solve_fix(s, alm, at_us, deviation_offset)
+    if relabel:
+        result = _relabel(s, alm, at_us, deviation_offset, result, _fix)
     result["warnings"] = list(warnings) + result["warnings"]
     return result
+
+
+def _relabel(s, alm, at_us, deviation_offset, result, _fix):
+    """Second pass: read rejected contacts as the image (or limb) they fit, keep what is then accepted."""
+    changed = {}
+    for entry in result["contacts"]:
+        sug = entry.get("suggest")
+        if entry["used"] or not sug:
+            continue
+        c = s.contacts[entry["index"]]
+        changed[c.index] = (c.image, c.limb)
+        if "image" in sug:
+            c.image = sug["image"]
+        else:
+            c.limb = sug["limb"]
+    if not changed:
+        return result
+    second = _fix.solve_fix(s, alm, at_us, deviation_offset)
+    kept = []
+    for entry in second["contacts"]:
+        old = changed.get(entry["index"])
+        if old is None:
+            continue
+        if entry["used"]:
+            what = ("image %s" % entry["image"]) if old[0] != entry["image"] else ("%s limb" % entry["limb"])
+            entry["labelled"] = {"image": old[0], "limb": old[1]}
+            entry["reason"] = "relabelled: timed as %s %s, fits as %s (residual %+.1f')" % (
+                old[0], old[1], what, entry["residual_nm"])
+            kept.append("contact %d relabelled %s %s -> %s" % (entry["index"], old[0], old[1], what))
+    if not kept:
+        for index, (image, limb) in changed.items():
+            s.contacts[index].image, s.contacts[index].limb = image, limb
+        return result
+    second["warnings"] = kept + second["warnings"]
+    return second

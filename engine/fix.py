@@ -485,7 +485,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         entry = {"index": c.index, "utc": format_utc(c.t_us), "body": c.body, "limb": c.limb, "image": c.image,
                  "deviation_deg": None, "ho_deg": None, "hc_deg": None, "zn_deg": None, "intercept_nm": None,
                  "residual_nm": None, "sigma_nm": None, "used": False, "reason": reasons.get(c.index),
-                 "direction": None}
+                 "direction": None, "suggest": None}
         if ln is not None:
             entry["deviation_deg"] = session.deviation_of(c.image)
             entry["ho_deg"] = ln.ho
@@ -497,8 +497,8 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             entry["direction"] = "rising" if ln.rate >= 0.0 else "setting"
             entry["used"] = c.index in used_idx
             if c.index in rejected_reason:
-                entry["reason"] = _reject_reason(session, alm, ln, rejected_reason[c.index][1], bias, obs,
-                                                 dut1_us, opt)
+                entry["reason"], entry["suggest"] = _reject_reason(session, alm, ln, rejected_reason[c.index][1],
+                                                                   bias, obs, dut1_us, opt)
         out_contacts.append(entry)
 
     rejected = [c.index for c in contacts if c.index not in used_idx]
@@ -526,7 +526,8 @@ def _azimuth_spread(zns):
 
 
 def _reject_reason(session, alm, ln, w, bias, obs, dut1_us, opt):
-    """Why a contact was rejected, with the mislabelled-image diagnosis."""
+    """Why a contact was rejected, with the mislabelled-image diagnosis: (text, suggestion)
+    where suggestion is None, {"image": id} or {"limb": "lower"|"upper"}."""
     text = "residual %+.1f' = %.1f sigma" % (ln.p, abs(w))
     c = ln.c
     best = None
@@ -543,13 +544,14 @@ def _reject_reason(session, alm, ln, w, bias, obs, dut1_us, opt):
         spacing = (session.deviation_of(c.image) - best[2]) * 60.0
         text += "; %+.1f' = %.2f image spacing %s->%s: probably mislabelled (as %s it fits within %.1f')" % (
             spacing, ln.p / spacing if spacing else 0.0, c.image, best[0], best[0], abs(best[1]))
-        return text
+        return text, {"image": best[0]}
     other = "upper" if c.limb == "lower" else "lower"
     ho, hc, _ = contact_terms(alm, c.body, other, ln.dev_deg + bias / 60.0, ln.t_us, ln.lat, ln.lon, obs, dut1_us)
     r = (ho - hc) * 60.0
     if abs(r) <= 3.0 * ln.sigma_nm:
         text += "; fits the %s limb within %.1f': probably the wrong limb" % (other, abs(r))
-    return text
+        return text, {"limb": other}
+    return text, None
 
 
 def lop_points(fix, contact, half_length_nm=10.0):

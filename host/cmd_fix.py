@@ -14,6 +14,8 @@ def register(sub):
     p.add_argument("--at", metavar="UTC", help="fix epoch (ISO 8601 UTC; default: the last contact)")
     p.add_argument("--offset", choices=("auto", "on", "off"), default="auto",
                    help="estimate a common deviation offset: auto (when estimable), on, off")
+    p.add_argument("--keep-labels", action="store_true",
+                   help="never read a rejected contact as the image or limb it fits (default: do, and say so)")
     p.add_argument("--json", action="store_true", help="machine-readable output (limbclock-fix/1)")
     p.set_defaults(func=run)
 
@@ -26,13 +28,13 @@ def _read(path):
         return f.read()
 
 
-def compute(text, at=None, offset="auto"):
+def compute(text, at=None, offset="auto", relabel=True):
     """The fix dict for a session text (``--at`` text or None)."""
     import engine
     from engine import timescale
     at_us = timescale.parse_utc(at) if at else None
     mode = {"auto": "auto", "on": True, "off": False}[offset]
-    return engine.reduce_session(text, at_us=at_us, deviation_offset=mode)
+    return engine.reduce_session(text, at_us=at_us, deviation_offset=mode, relabel=relabel)
 
 
 def format_fix(r):
@@ -61,7 +63,10 @@ def format_fix(r):
                        % (c["index"], t, c["body"], c["limb"], c["image"] or "?", "-", "-", "-", "-", "-", "-",
                           c["reason"]))
             continue
-        status = "used" if c["used"] else "REJECTED: %s" % c["reason"]
+        if c["used"]:
+            status = "used" if not c.get("labelled") else "used, %s" % c["reason"]
+        else:
+            status = "REJECTED: %s" % c["reason"]
         out.append("  %3d %-12s %-4s %-5s %-5s %8s %8s %6.1f %+8.2f %+8.2f %5.2f  %s %s"
                    % (c["index"], t, c["body"], c["limb"], c["image"], _dm(c["ho_deg"]), _dm(c["hc_deg"]),
                       c["zn_deg"], _r2(c["intercept_nm"]), _r2(c["residual_nm"]), c["sigma_nm"], c["direction"],
@@ -90,7 +95,7 @@ def _dist(r):
 
 
 def run(args):
-    r = compute(_read(args.session), args.at, args.offset)
+    r = compute(_read(args.session), args.at, args.offset, relabel=not args.keep_labels)
     if args.json:
         print(json.dumps(r, indent=1))
     else:

@@ -21,7 +21,7 @@ timing noise (0.3 s) and by an altitude noise (0.4' of abnormal refraction and
 sea) divided by the Sun's rate.  A fixed seed makes the run repeatable.  The
 navigator's notes name the image of most contacts; three are left unlabelled
 (the engine's identification labels them) and one is mislabelled (the fix
-should reject or diagnose it).
+rejects it, finds the image it fits and reads it as that image).
 
 Chain.  The contact times go to the virtual timer (``device.sim``) as button
 presses in simulated time; the host syncs its log over the pseudo-terminal

@@ -46,8 +46,9 @@ def test_demo_runs_the_whole_chain(demo):
     assert s["wall_s"] < 60
     # the fix beats the dead reckoning against the scenario's truth
     assert s["error_nm"] < s["dr_error_nm"] and s["error_nm"] < 4.0
-    # identification gave the unlabelled contacts their images; the mislabelled one was caught
-    assert s["labels_correct"] >= s["contacts"] - 1
+    # identification gave the unlabelled contacts their images; the mislabelled one was read as the
+    # image it fits
+    assert s["labels_correct"] == s["contacts"]
     assert "fix error" in human and "shade glass" in human.splitlines()[-3]
 
 
@@ -122,11 +123,14 @@ def test_plan_and_calibrate_from_the_archive(demo, tmp_path):
     b = json.loads(limbclock("plan", os.path.join(out, "session.json"), "--from", t_from, "--to", t_to, "--json"))
     assert [(c["utc"], c["image"]) for c in a["contacts"]] == [(c["utc"], c["image"]) for c in b["contacts"]]
     assert len(a["contacts"]) >= 14
-    # the navigator corrects the mislabelled note first (the fix rejected that contact)
+    # the navigator corrects the mislabelled note first (the fix read it as the image it fits)
     from engine import almanac
     timed = scenario.contact_times(almanac.load(), scenario.build_instrument()[1])
     wrong = [k for k, c in enumerate(timed) if c["note"] is not None and c["note"] != c["image"]]
-    assert len(wrong) == 1 and wrong[0] in s["fix"]["rejected"]
+    assert len(wrong) == 1 and wrong[0] not in s["fix"]["rejected"]
+    relabelled = s["fix"]["contacts"][wrong[0]]
+    assert relabelled["labelled"]["image"] == timed[wrong[0]]["note"]
+    assert relabelled["image"] == timed[wrong[0]]["image"] and relabelled["used"]
     with open(os.path.join(out, "session.json")) as f:
         seq = json.load(f)["contacts"][wrong[0]]["seq"]
     t = scenario.TRUE_TRACK

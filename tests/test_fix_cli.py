@@ -24,9 +24,12 @@ def test_human_output(capsys):
     assert cli.main(["fix", SESSION, "--at", "2030-10-20T21:00:00Z"]) == 0
     out = capsys.readouterr().out
     assert "Fix at 2030-10-20T21:00:00.000Z" in out and "95% ellipse" in out
-    assert "REJECTED" in out and "probably mislabelled" in out
+    assert "used, relabelled: timed as i05 upper, fits as image i04" in out and "REJECTED" not in out
     for line in CAUTION_LINES:
         assert line in out
+    assert cli.main(["fix", SESSION, "--keep-labels"]) == 0
+    out = capsys.readouterr().out
+    assert "REJECTED" in out and "probably mislabelled" in out
 
 
 def test_bad_input_one_line_exit_2(tmp_path, capsys):

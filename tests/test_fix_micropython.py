@@ -21,4 +21,5 @@ def test_reduce_session_under_micropython():
     lat, lon, major, rejected, reason = json.loads(run_micropython(code).strip().splitlines()[-1])
     assert abs(lat - ref["lat_deg"]) * 60.0 < 1e-4 and abs(lon - ref["lon_deg"]) * 60.0 < 1e-4   # 0.0001 nmi
     assert abs(major - ref["ellipse_95"]["major_nm"]) < 1e-3
-    assert rejected == ref["rejected"] and "probably mislabelled" in reason
+    assert rejected == ref["rejected"] == [] and reason == ref["contacts"][6]["reason"]
+    assert reason.startswith("relabelled: timed as i05")

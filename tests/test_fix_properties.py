@@ -49,12 +49,16 @@ def test_one_image_spacing_blunder_is_flagged(name, pick, up):
     if not 0 <= j < len(ids):
         j = ids.index(c["image"]) - (1 if up else -1)
     true_id, c["image"] = c["image"], ids[j]
-    r = engine.reduce_session(json.dumps(d), ALM)
+    r = engine.reduce_session(json.dumps(d), ALM, relabel=False)
     assert k in r["rejected"]
     assert r["rejected"] == [k]
     reason = r["contacts"][k]["reason"]
     assert "probably mislabelled" in reason and "%s->%s" % (ids[j], true_id) in reason
     assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
+    # the second pass reads it as the image it fits and uses it
+    r2 = engine.reduce_session(json.dumps(d), ALM)
+    assert r2["rejected"] == [] and r2["images"][k] == true_id and r2["contacts"][k]["labelled"]["image"] == ids[j]
+    assert distance_nm(r2["lat_deg"], r2["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
 
 
 @SLOW
@@ -173,13 +177,20 @@ def test_three_mislabels_and_a_wrong_limb(name):
         truth[k] = c["image"]
         c["image"] = ids[j + 1 if j + 1 < len(ids) else j - 1]
     c = d["contacts"][9]
+    true_limb = c["limb"]
     c["limb"] = "upper" if c["limb"] == "lower" else "lower"
-    r = engine.reduce_session(json.dumps(d), ALM)
+    r = engine.reduce_session(json.dumps(d), ALM, relabel=False)
     assert r["rejected"] == [3, 9, 11, 20]
     for k, true_id in truth.items():
         assert "->%s: probably mislabelled" % true_id in r["contacts"][k]["reason"]
     assert "probably the wrong limb" in r["contacts"][9]["reason"]
     assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
+    # the second pass reads each as what it fits
+    r2 = engine.reduce_session(json.dumps(d), ALM)
+    assert r2["rejected"] == []
+    assert all(r2["images"][k] == true_id for k, true_id in truth.items())
+    assert r2["contacts"][9]["limb"] == true_limb
+    assert distance_nm(r2["lat_deg"], r2["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
 
 
 def test_lop_points_geometry():
