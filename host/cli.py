@@ -11,17 +11,17 @@ import importlib
 import sys
 
 COMMANDS = (
-    "host.cmd_doctor",
-    "host.cmd_ladder",
-    "host.cmd_plan",
-    "host.cmd_calibrate",
-    "host.cmd_identify",
-    "host.cmd_almanac",
-    "host.cmd_archive",
-    "host.cmd_fix",
-    "host.cmd_sim",
-    "host.cmd_sync",
     "host.cmd_demo",
+    "host.cmd_almanac",
+    "host.cmd_plan",
+    "host.cmd_fix",
+    "host.cmd_identify",
+    "host.cmd_calibrate",
+    "host.cmd_ladder",
+    "host.cmd_sync",
+    "host.cmd_archive",
+    "host.cmd_sim",
+    "host.cmd_doctor",
 )
 
 
@@ -48,6 +48,12 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("limbclock: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # the reader went away (e.g. `limbclock export --json | head`): stop quietly
+        import os
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except Exception as exc:  # one clear line at the edge; the traceback with --debug
         if args.debug:
             raise
