@@ -315,8 +315,9 @@ class Onboard:
             sig = 0.0 if r.uncertainty_us == UNC_UNKNOWN else r.uncertainty_us / 1e6
             if r.uncertainty_us == UNC_UNKNOWN or sig > MAX_SIGMA_S:
                 continue
-            parts.append('{"utc":"%s","body":"%s","limb":"%s","image":null,"sigma_s":%s,"seq":%d}'
-                         % (format_utc(r.utc_us, 6), BODY_NAMES[r.body], LIMB_NAMES[r.limb], repr(sig), r.seq))
+            # no extra keys: each would cost a dict per contact in the parsed session
+            parts.append('{"utc":"%s","body":"%s","limb":"%s","image":null,"sigma_s":%s}'
+                         % (format_utc(r.utc_us, 6), BODY_NAMES[r.body], LIMB_NAMES[r.limb], repr(sig)))
         if len(parts) < MIN_CONTACTS:
             raise OnboardError("%d contact(s): need %d" % (len(parts), MIN_CONTACTS))
         ex = self.inst_extra or {}

@@ -57,7 +57,7 @@ DEFAULT_TIME_SIGMA_S = 0.25
 DEFAULT_CONFIDENCE = 0.99
 MAX_GRID_POINTS = 1600
 REFINE_TOP = 8
-KEEP_HYPOTHESES = 4 * REFINE_TOP      # grid-search assignments held at once (>= REFINE_TOP)
+KEEP_HYPOTHESES = 2 * REFINE_TOP      # grid-search assignments kept when pruning (>= REFINE_TOP)
 
 
 class IdentifyError(ValueError):
@@ -224,7 +224,7 @@ def _hypotheses(p, radius_nm, step_nm=None):
         cost += (north * north + east * east) * w0
         if assign not in best or cost < best[assign][0]:
             best[assign] = (cost, north, east)
-            if len(best) > 2 * KEEP_HYPOTHESES:
+            if len(best) > KEEP_HYPOTHESES + REFINE_TOP:
                 best = _prune(best)
     return best
 

@@ -63,11 +63,13 @@ import gc
 %(setup)s
 gc.collect()
 _reserve = bytearray(%(free)d - 16)
-_ballast = []
+_ballast = [None] * 8192               # allocated first: growing a list could fail half-way
+_k = 0
 _size = 16384
-while _size >= 16:
+while _size >= 16 and _k < 8192:
     try:
-        _ballast.append(bytearray(_size - 16))
+        _ballast[_k] = bytearray(_size - 16)
+        _k += 1
     except MemoryError:
         _size //= 2
 _reserve = None
