@@ -271,3 +271,32 @@ def test_status_json_carries_the_next_contact_dict():
     nc = st["next_contact"]
     assert set(nc) >= {"utc", "body", "limb", "image", "direction", "zn_deg"}
     assert nc["utc"] == format_utc(nc["t_us"], 1)
+
+
+def test_onboard_fix_in_single_precision(monkeypatch):
+    # The board's FPU: the emulation of tests/test_fix_float32.py (every engine float op rounded to
+    # float32), extended to engine.identify, which the on-board path runs (contacts unlabelled).
+    import types
+    import numpy as np
+    from engine import angles, corrections, fix, sphere
+    import math
+    from test_fix_float32 import F32_MATH, _f32
+    f32 = types.SimpleNamespace(**vars(F32_MATH))
+    f32.exp = _f32(math.exp)                                         # identify's hypothesis weights
+    doc = load("station_sun")
+    for c in doc["contacts"]:
+        c["image"] = None
+    text = json.dumps(doc)
+    import engine
+    double = engine.reduce_session(text, almanac.load())
+    monkeypatch.setattr(almanac, "_float", np.float32)
+    monkeypatch.setattr(almanac, "math", types.SimpleNamespace(sin=F32_MATH.sin, asin=F32_MATH.asin, pi=F32_MATH.pi))
+    for mod in (angles, corrections, sphere, fix, identify):
+        monkeypatch.setattr(mod, "math", f32)
+    single = engine.reduce_session(text, almanac.load())
+    assert type(single["lat_deg"]) is np.float32
+    assert single["images"] == double["images"] and single["rejected"] == double["rejected"]
+    shift = distance_nm(float(single["lat_deg"]), float(single["lon_deg"]), double["lat_deg"], double["lon_deg"])
+    assert shift < 0.05, shift
+    truth = doc["truth"]
+    assert distance_nm(float(single["lat_deg"]), float(single["lon_deg"]), truth["lat_deg"], truth["lon_deg"]) < 0.3
