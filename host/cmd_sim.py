@@ -24,6 +24,11 @@ def register(sub):
     p.add_argument("--drift-ppm", type=float, default=1.3, help="oscillator drift in ppm (default 1.3)")
     p.add_argument("--oscillator", choices=("tcxo", "xo"), default="tcxo", help="holdover error model")
     p.add_argument("--display-file", metavar="FILE", help="write the timer's display lines to FILE")
+    p.add_argument("--conditions", action="store_true",
+                   help="put the session's instrument, track and observer on the timer (as `limbclock push` "
+                        "would), so it shows the next contact and can reduce on board")
+    p.add_argument("--fix-after", type=float, metavar="S",
+                   help="hold the button for the on-board fix S seconds after the last contact (needs --conditions)")
     p.add_argument("--seed", type=int, default=1, help="seed of the link faults")
     p.add_argument("--json", action="store_true", help="after the port line, report in JSON when stopped")
     p.set_defaults(func=run)
@@ -44,13 +49,28 @@ def _build(args):
         if b <= a:
             raise UserError("--gps-outage %r ends before it starts" % text)
         outages.append((a, b))
+    fix_at = None
+    if args.fix_after is not None:
+        if not args.conditions:
+            raise UserError("--fix-after needs --conditions (the timer needs the instrument and track)")
+        if not 0.0 <= args.fix_after <= 86400.0:
+            raise UserError("--fix-after must be between 0 and 86400 s, got %g" % args.fix_after)
+        from device.sim import read_contacts
+        try:
+            contacts = read_contacts(args.session)
+        except FileNotFoundError:
+            raise UserError("session file %s not found" % args.session)
+        if not contacts:
+            raise UserError("--fix-after: the session has no contacts")
+        fix_at = contacts[-1][0] + int(args.fix_after * 1e6)
     try:
         return VirtualTimer(session=args.session, state_dir=args.state, link_faults=args.link_faults,
                             speed=args.speed, seed=args.seed, drift_ppm=args.drift_ppm,
                             profile=clock.XO if args.oscillator == "xo" else clock.TCXO, outages=outages,
                             power_cut_at_us=parse_utc(args.power_cut_at) if args.power_cut_at else None,
                             power_cut_after_bytes=args.power_cut_after_bytes,
-                            display_file=args.display_file, display_stderr=not args.display_file)
+                            display_file=args.display_file, display_stderr=not args.display_file,
+                            conditions=args.conditions, fix_at_us=fix_at)
     except FileNotFoundError:
         raise UserError("session file %s not found" % args.session)
 
@@ -85,7 +105,9 @@ def run(args):
                "last_seq": fw.log.last_seq if fw else None,
                "confirmed_seq": fw.log.confirmed_seq if fw else None,
                "power_cuts": vt.power_cuts, "link_bytes_dropped": vt.faults_in.dropped + vt.faults_out.dropped,
-               "link_bytes_corrupted": vt.faults_in.corrupted + vt.faults_out.corrupted}
+               "link_bytes_corrupted": vt.faults_in.corrupted + vt.faults_out.corrupted,
+               "onboard_fix": fw.onboard.fix if fw else None,
+               "next_contact": fw.onboard.next if fw else None}
     if args.json:
         print(json.dumps(summary))
     else:

@@ -300,3 +300,36 @@ def test_onboard_fix_in_single_precision(monkeypatch):
     assert shift < 0.05, shift
     truth = doc["truth"]
     assert distance_nm(float(single["lat_deg"]), float(single["lon_deg"]), truth["lat_deg"], truth["lon_deg"]) < 0.3
+
+
+def test_sim_command_shows_the_onboard_fix(tmp_path):
+    import signal
+    import subprocess
+    import sys
+    import time
+    doc = load("station_sun")
+    doc["contacts"] = doc["contacts"][:8]
+    sess = tmp_path / "s.json"
+    sess.write_text(json.dumps(doc))
+    disp = tmp_path / "display.txt"
+    proc = subprocess.Popen([sys.executable, "-m", "host", "sim", "--session", str(sess), "--conditions",
+                             "--fix-after", "10", "--display-file", str(disp), "--json"],
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        port = proc.stdout.readline().strip()
+        with TimerClient(port, timeout=0.5, retries=10) as c:
+            deadline = time.time() + 60
+            while c.status()["onboard_fix"] is None:
+                assert time.time() < deadline, "the virtual timer did not reduce on board"
+            fix = c.status()["onboard_fix"]
+        lines = disp.read_text().splitlines()
+        assert lines[4] == "%s %s" % (fmt_lat(fix["lat_deg"]), fmt_lon(fix["lon_deg"]))
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        out, err = proc.communicate(timeout=10)
+    assert proc.returncode == 0, err
+    assert json.loads(out.strip().splitlines()[-1])["onboard_fix"]["contacts_used"] == 8
+    p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(sess), "--fix-after", "10"],
+                       cwd=ROOT, capture_output=True, text=True, timeout=30)
+    assert p.returncode == 2 and "--fix-after needs --conditions" in p.stderr
+    assert len(p.stderr.strip().splitlines()) == 1
