@@ -73,6 +73,7 @@ contacts; otherwise it is held at zero (a warning says so).  In practice it
 needs contacts on both sides of the meridian (rising and setting).
 """
 import math
+from array import array as _array
 
 from engine.angles import cosd, sind, atan2d
 from engine.constants import US_PER_S
@@ -159,12 +160,15 @@ def _huber_factor(use):
 # S is never stored, only its Cholesky factor L (row i holds L[i][0..i]).  A diagonal
 # factor is a plain list of floats.
 
+_ROW = (list, _array)      # a row of a full factor (a diagonal factor is a list of floats)
+
+
 def _cholesky(items, cov):
     """Lower-triangular L with L L^T = S, S[i][j] = cov(items[i], items[j], i == j);
     None when S is not positive definite (Cholesky-Banachiewicz)."""
     L = []
     for i in range(len(items)):
-        row = [0.0] * (i + 1)
+        row = _array('d', [0.0] * (i + 1))         # unboxed: 8 bytes a number on a board's heap
         for j in range(i + 1):
             s = cov(items[i], items[j], i == j)
             lj = L[j] if j < i else row
@@ -182,7 +186,7 @@ def _cholesky(items, cov):
 
 def _forward(L, v):
     """y with L y = v."""
-    if not isinstance(L[0], list):
+    if not isinstance(L[0], _ROW):
         return [x / d for x, d in zip(v, L)]
     y = []
     for i, row in enumerate(L):
@@ -195,7 +199,7 @@ def _forward(L, v):
 
 def _backward(L, y):
     """x with L^T x = y."""
-    if not isinstance(L[0], list):
+    if not isinstance(L[0], _ROW):
         return [x / d for x, d in zip(y, L)]
     n = len(L)
     x = [0.0] * n
@@ -464,7 +468,9 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         warnings.append("running fix over %.1f h: it assumes the DR course %.0f deg and speed %.1f kn held"
                         % (run_h, tr.course_deg, tr.speed_kn))
 
-    # per-contact report
+    # per-contact report: the working matrices go first (a board's heap holds one or the other)
+    L = At = pt = g = B = sinv_diag = None
+    chol_cache.clear()
     out_contacts = []
     used_idx = set(ln.c.index for ln in use)
     by_index = {}
