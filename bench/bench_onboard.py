@@ -111,6 +111,15 @@ def run():
     print("   estimated on a 100-200 MHz board:          %5.0f-%.0f s  (x%.0f-%.0f the WebAssembly time)"
           % (mp["ms"] * fast / 1000.0, mp["ms"] * slow / 1000.0, fast, slow))
 
+    from engine.timescale import parse_utc
+    t_plan = parse_utc(doc30["contacts"][0]["utc"]) - 3600 * 1000000
+    call = ("_t0 = ticks_ms()\nob.update(%d, 0, 'lower')\n_ms = ticks_diff(ticks_ms(), _t0)\n"
+            "print(json.dumps({'ms': _ms, 'next': ob.next and ob.next['utc']}))\n" % t_plan)
+    plan = S.last_json(mpy.run_micropython(S.setup_code(doc30, "/lcstore") + call, packages=("engine", "device")))
+    print("   one next-contact plan (Onboard.update, 1 h before the first contact; found %s):" % plan["next"])
+    print("      WebAssembly port %d ms, estimated on a board %.1f-%.1f s (every 5 min, or after a contact)"
+          % (plan["ms"], plan["ms"] * fast / 1000.0, plan["ms"] * slow / 1000.0))
+
     print("3. accuracy")
     print("   WebAssembly port vs CPython: %.5f nmi, used/rejected %d/%d vs %d/%d"
           % (distance_nm(mp["lat_deg"], mp["lon_deg"], ref["lat_deg"], ref["lon_deg"]), mp["used"],
