@@ -333,3 +333,48 @@ def test_sim_command_shows_the_onboard_fix(tmp_path):
                        cwd=ROOT, capture_output=True, text=True, timeout=30)
     assert p.returncode == 2 and "--fix-after needs --conditions" in p.stderr
     assert len(p.stderr.strip().splitlines()) == 1
+
+
+def test_session_text_keeps_only_the_sessions_timed_unvoided_contacts():
+    from device import log as L
+    from device.onboard import iter_records
+    store = MemStore()
+    doc = load("morning_run")
+    files = conditions_files(doc)
+    store.replace("slot_instrument", files["instrument"])
+    store.replace("slot_track", files["track"])
+    lg = L.Log(store, capacity=65536)
+    t = [parse_utc(c["utc"]) for c in doc["contacts"][:8]]
+    lg.append(L.CONTACT, t[0], 1, 30, 0, 0, 1)                       # seq 1: session 1
+    lg.append(L.SESSION, t[0] + 5000000, 1, 30, 0, 0, 2)
+    lg.append(L.CONTACT, t[1], 1, 30, 0, 0, 2)                       # seq 3: kept
+    lg.append(L.CONTACT, t[2], 1, 30, 0, 1, 2)                       # seq 4: voided below
+    lg.append(L.VOID, t[2] + 9000000, 1, 30, 0, 1, 2, -1, 4)
+    lg.append(L.CONTACT, t[3], 0, 0xFFFFFFFF, 0, 0, 2)               # no time: left out
+    lg.append(L.CONTACT, t[4], 2, 0xFFFFFFFF, 1, 0, 2)               # holdover, uncertainty unknown: out
+    lg.append(L.CONTACT, t[5], 2, 61000000, 0, 0, 2)                 # less certain than 60 s: out
+    lg.append(L.CONTACT, t[6], 2, 250000, 1, 1, 2)                   # holdover 0.25 s: kept, moon upper
+    lg.append(L.CONTACT, t[7], 3, 1500, 0, 0, 2)                     # manual time: kept
+    ob = Onboard(store)
+    s = parse_session(ob.session_text(lambda: iter_records(lg, 3), 2), ALM)
+    assert [(c.t_us, c.body, c.limb, c.sigma_s) for c in s.contacts] == [
+        (t[1], "sun", "lower", 30e-6), (t[6], "moon", "upper", 0.25), (t[7], "sun", "lower", 0.0015)]
+    assert s.images == [(i["id"], i["deviation_deg"], i.get("sigma_arcmin")) for i in doc["instrument"]["images"]]
+    assert ob.reduce(lambda: iter_records(lg), 1) is None and ob.fix_error == "1 contact(s): need 3"
+
+
+def test_fix_outside_the_almanac_is_a_message():
+    from device import log as L
+    from device.onboard import iter_records
+    store = MemStore()
+    doc = load("morning_run")
+    files = conditions_files(doc)
+    store.replace("slot_instrument", files["instrument"])
+    store.replace("slot_track", track_file(dict(doc["track"], utc="2051-06-01T00:00:00Z"), doc["observer"]))
+    lg = L.Log(store, capacity=65536)
+    for k in range(4):
+        lg.append(L.CONTACT, parse_utc("2051-06-01T08:00:00Z") + k * 600000000, 1, 30, 0, 0, 1)
+    ob = Onboard(store)
+    assert ob.reduce(lambda: iter_records(lg), 1) is None
+    assert ob.fix_error == "almanac: contacts outside it" and ob.fix is None
+    assert ob.fix_lines() == ["FIX failed", "almanac: contacts outside it"]

@@ -83,3 +83,20 @@ def test_onboard_reduction_heap_budget(free, fits):
         assert S.last_json(out)["used"] == ONBOARD_CONTACTS
     else:
         assert not ok and "no memory for the fix" in out
+
+
+def test_next_contact_plan_under_micropython_matches_cpython():
+    import contextlib
+    import io
+    from engine.timescale import parse_utc
+    doc = S.session_doc("sun_moon", 4)
+    t = parse_utc(doc["contacts"][0]["utc"]) - 3600 * 1000000
+    call = ("ob.update(%d, 0, 'lower')\nn = ob.next\n"
+            "print(json.dumps([n['t_us'], n['body'], n['image'], n['direction'], n['zn_deg']]))\n" % t)
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        exec(S.setup_code(doc, tempfile.mkdtemp()) + call, {})
+    ref = json.loads(buf.getvalue().strip().splitlines()[-1])
+    mp = json.loads(run_micropython(S.setup_code(doc, "/lcstore") + call,
+                                    packages=("engine", "device")).strip().splitlines()[-1])
+    assert mp[1:4] == ref[1:4] and abs(mp[0] - ref[0]) <= 1000 and abs(mp[4] - ref[4]) <= 0.1
