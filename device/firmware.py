@@ -183,11 +183,7 @@ class Firmware:
         utc, state, _ = self.clock.now(now)
         if state == clk.NONE:
             return
-        try:
-            changed = self.onboard.update(utc, self.body * 2 + self.limb, LIMB_NAMES[self.limb])
-        except MemoryError:
-            self.onboard.problem = "no memory for the plan"
-            changed = True
+        changed = self.onboard.update(utc, self.body * 2 + self.limb, LIMB_NAMES[self.limb])
         if changed:
             self.dirty = True
 

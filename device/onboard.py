@@ -263,6 +263,14 @@ class Onboard:
             self.problem = "plan: %s" % e
             self.plan_due = utc_us + PLAN_RETRY_US
             return True
+        except MemoryError:
+            self.problem = "no memory for the plan"
+            self.plan_due = utc_us + PLAN_RETRY_US
+            return True
+        except Exception as e:          # a fault in the planner must not stop the timer's loop
+            self.problem = "plan: internal error (%s)" % type(e).__name__
+            self.plan_due = utc_us + PLAN_RETRY_US
+            return True
         if c is not None:
             self.next = {"utc": format_utc(c.t_us, 1), "t_us": c.t_us, "body": c.body, "limb": c.limb,
                          "image": c.image, "direction": c.direction, "zn_deg": round(c.zn_deg, 1),
@@ -339,8 +347,9 @@ class Onboard:
         return head + ",".join(parts) + "]}"
 
     def reduce(self, records, session_no):
-        """Reduce session ``session_no`` on board (``records`` as for ``session_text``).  Returns the fix summary (also kept in ``fix``);
-        on any problem keeps the short message in ``fix_error`` and returns None."""
+        """Reduce session ``session_no`` on board (``records`` as for ``session_text``).  Returns the
+        fix summary (also kept in ``fix``; a failed attempt leaves the previous one there); on any
+        problem keeps the short message in ``fix_error`` and returns None."""
         self.fix_error = None
         try:
             text = self.session_text(records, session_no)
@@ -354,6 +363,9 @@ class Onboard:
             if "outside the almanac" in msg:
                 msg = "almanac: contacts outside it"
             self.fix_error = msg
+            return None
+        except Exception as e:          # a fault in the reduction must not stop the timer's loop
+            self.fix_error = "internal error (%s)" % type(e).__name__
             return None
         e = r["ellipse_95"]
         self.fix = {"utc": r["utc"], "lat_deg": r["lat_deg"], "lon_deg": r["lon_deg"],

@@ -378,3 +378,19 @@ def test_fix_outside_the_almanac_is_a_message():
     assert ob.reduce(lambda: iter_records(lg), 1) is None
     assert ob.fix_error == "almanac: contacts outside it" and ob.fix is None
     assert ob.fix_lines() == ["FIX failed", "almanac: contacts outside it"]
+
+
+def test_a_fault_in_the_engine_does_not_stop_the_timer(monkeypatch):
+    import engine
+    doc = load("morning_run")
+    doc["contacts"] = doc["contacts"][:5]
+
+    def broken(*a, **k):
+        raise TypeError("a bug")
+    monkeypatch.setattr(engine, "reduce_session", broken)
+    monkeypatch.setattr(plan, "next_contact", broken)
+    vt = VirtualTimer(session=doc, conditions=True, fix_at_us=last_utc(doc) + 20000000)
+    vt.run_contacts()                                           # presses, plans, reduces: no exception
+    assert len([r for r in vt.fw.log.records() if r.kind == 1]) == 5
+    assert vt.fw.onboard.fix_error == "internal error (TypeError)"
+    assert vt.fw.onboard.problem == "plan: internal error (TypeError)"
