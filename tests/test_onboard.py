@@ -394,3 +394,19 @@ def test_a_fault_in_the_engine_does_not_stop_the_timer(monkeypatch):
     assert len([r for r in vt.fw.log.records() if r.kind == 1]) == 5
     assert vt.fw.onboard.fix_error == "internal error (TypeError)"
     assert vt.fw.onboard.problem == "plan: internal error (TypeError)"
+
+
+def test_limbclock_push_sends_a_track_file_the_timer_reads_with_its_observer():
+    from host.sync import check_file, push
+    doc = load("morning_run")
+    doc["contacts"] = doc["contacts"][:4]
+    vt = VirtualTimer(session=doc)                             # nothing on the timer yet
+    c = TimerClient(vt.loopback(faults=0.0))
+    files = conditions_files(doc)
+    push(c, "instrument", check_file("instrument", files["instrument"]))
+    push(c, "track", check_file("track", track_file(doc["track"], doc["observer"])))
+    vt.press_fix(last_utc(doc) + 20000000)
+    vt.advance_to(last_utc(doc) + 40000000)
+    st = c.status()
+    assert st["plan_problem"] is None and st["onboard_fix_error"] is None
+    assert st["onboard_fix"]["contacts_used"] + st["onboard_fix"]["rejected"] == 4
