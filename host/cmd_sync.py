@@ -2,6 +2,7 @@
 
     limbclock sync --port /dev/ttyACM0 [--db FILE] [--json]
     limbclock push --port /dev/ttyACM0 --instrument stack.json
+    limbclock push --port /dev/ttyACM0 --track session.json     # DR track + observer (limbclock-track/1)
 """
 import json
 import sys
@@ -28,7 +29,9 @@ def register(sub):
     g = p.add_mutually_exclusive_group(required=True)
     g.add_argument("--instrument", metavar="FILE", help="limbclock-instrument/1 file")
     g.add_argument("--almanac", metavar="FILE", help="almanac file (.lca)")
-    g.add_argument("--track", metavar="FILE", help="DR track (JSON object, or a session file's track)")
+    g.add_argument("--track", metavar="FILE",
+                   help="DR track and observer: a limbclock-track/1 file, or a session file (its track and "
+                        "observer are sent as limbclock-track/1)")
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=run_push)
 
@@ -70,4 +73,14 @@ def run_push(args):
         return 0
     print("sent %s (%d bytes) to timer %s; read back and verified, CRC-32 %s"
           % (slot, res["size"], res["device"], res["crc32"]))
+    print(plan_text(res))
     return 0
+
+
+def plan_text(res):
+    """One line: the timer's next contact after a push, or why it has none."""
+    c = res.get("next_contact")
+    if c:
+        return "the timer now shows the next contact: %s %s %s limb, %s, at %s, Zn %03d" % (
+            c["image"], c["body"], c["limb"], c["direction"], c["utc"], int(c["zn_deg"] + 0.5) % 360)
+    return "the timer shows no next contact: %s" % (res.get("plan_problem") or "none within its horizon")

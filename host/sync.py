@@ -170,8 +170,8 @@ def check_file(slot, data):
     """Validate a file before it goes to the timer; return the bytes to send.
 
     instrument: ``limbclock-instrument/1``; almanac: an ``.lca`` almanac file;
-    track: a session-file track object (``utc, lat_deg, lon_deg, course_deg, speed_kn``)
-    or a session file, whose ``track`` is sent."""
+    track: a ``limbclock-track/1`` file or a ``limbclock-session/1`` file, sent as the
+    ``limbclock-track/1`` file of its track and observer (``track_bytes``)."""
     if slot == "instrument":
         from engine import instrument
         instrument.parse_instrument(data)
@@ -181,23 +181,53 @@ def check_file(slot, data):
         almanac.parse(data, "almanac file")
         return data
     if slot == "track":
-        import json
-        try:
-            doc = json.loads(data.decode("utf-8"))
-        except (UnicodeDecodeError, ValueError) as exc:
-            raise SyncError("track file: not JSON (%s)" % exc)
-        if isinstance(doc, dict) and isinstance(doc.get("track"), dict):
-            doc = doc["track"]
-        from engine.session import session_from_dict
-        session_from_dict({"format": "limbclock-session/1", "observer": {"eye_height_m": 0.0},
-                           "instrument": {"images": [{"id": "x", "deviation_deg": 10.0}]}, "track": doc,
-                           "contacts": [{"utc": doc.get("utc"), "body": "sun", "limb": "lower"}]})
-        return json.dumps(doc, sort_keys=True).encode("utf-8")
+        return track_bytes(data)
     raise SyncError("push: unknown slot %r (instrument, almanac or track)" % slot)
 
 
+TRACK_FORMATS = ("limbclock-track/1", "limbclock-session/1")
+
+
+def track_bytes(data):
+    """The ``limbclock-track/1`` bytes to push from a ``limbclock-track/1`` or ``limbclock-session/1``
+    file (bytes): the DR track WITH the observer, built by ``device.onboard.track_file`` and checked by
+    ``device.onboard.parse_track`` (the rules the timer applies).  The observer is required: without
+    the height of eye the timer cannot reduce on board."""
+    import json
+    from device.onboard import TRACK_FORMAT, parse_track, track_file
+    try:
+        doc = json.loads(bytes(data).decode("utf-8"))
+    except (UnicodeDecodeError, ValueError) as exc:
+        raise SyncError("track file: not JSON (%s)" % exc)
+    if not isinstance(doc, dict):
+        raise SyncError("track file: expected a JSON object (a %s or %s file)" % TRACK_FORMATS)
+    fmt = doc.get("format")
+    if fmt == TRACK_FORMAT:
+        track, observer = parse_track(doc)
+        what = "track file"
+    elif fmt == TRACK_FORMATS[1] or (fmt is None and "track" in doc):
+        track, observer = doc.get("track"), doc.get("observer")
+        what = "session file"
+        if not isinstance(track, dict):
+            raise SyncError("session file: 'track' must be an object (the DR track: utc, lat_deg, lon_deg, "
+                            "course_deg, speed_kn)")
+        if observer is not None and not isinstance(observer, dict):
+            raise SyncError("session file: 'observer' must be an object")
+    elif fmt is None:
+        raise SyncError("track file: no 'format' (expected %r or %r)" % TRACK_FORMATS)
+    else:
+        raise SyncError("track file: format %r, expected %r or %r" % ((fmt,) + TRACK_FORMATS))
+    if observer is None:
+        raise SyncError("%s: no 'observer' (eye_height_m): the timer needs the height of eye to reduce "
+                        "on board" % what)
+    out = track_file(track, observer)
+    parse_track(out)                   # the session reader's rules; messages name the field
+    return out
+
+
 def push(client, slot, data, progress=None):
-    """Send a checked file to the timer and verify it there (size and CRC-32 read back)."""
+    """Send a checked file to the timer and verify it there (size and CRC-32 read back); the
+    result carries the timer's plan after it (``next_contact``, or ``plan_problem``: why none)."""
     import binascii
     data = check_file(slot, data)
     info = client.handshake()
@@ -207,5 +237,7 @@ def push(client, slot, data, progress=None):
     if back.get("size") != len(data) or back.get("crc32") != crc:
         raise SyncError("the timer holds %s as %s bytes, CRC %s; sent %d bytes, CRC %08x"
                         % (slot, back.get("size"), back.get("crc32"), len(data), crc))
+    st = client.status()          # the timer replans at once when a file arrives
     return {"device": info.get("device_id"), "slot": slot, "size": len(data), "crc32": "%08x" % crc,
-            "verified": True, "timer": result}
+            "verified": True, "timer": result, "next_contact": st.get("next_contact"),
+            "plan_problem": st.get("plan_problem")}

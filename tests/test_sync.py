@@ -191,11 +191,12 @@ def test_push_instrument_is_verified(tmp_path):
     with pytest.raises(ValueError):
         sync.push(client, "almanac", lca[:-1] + bytes((lca[-1] ^ 1,)))     # its own CRC-32 fails
     track = b'{"track": {"utc": "2031-05-14T06:00:00Z", "lat_deg": 41.2, "lon_deg": -9.7, "course_deg": 135, ' \
-            b'"speed_kn": 6}}'
+            b'"speed_kn": 6}, "observer": {"eye_height_m": 2.5}}'
     res = sync.push(client, "track", track)
     assert res["verified"] and client.file_info("track")["size"] == res["size"]
     with pytest.raises(ValueError, match="lat_deg"):
-        sync.push(client, "track", b'{"utc": "2031-05-14T06:00:00Z", "lat_deg": 141.2, "lon_deg": -9.7}')
+        sync.push(client, "track", b'{"format": "limbclock-track/1", "utc": "2031-05-14T06:00:00Z", '
+                                   b'"lat_deg": 141.2, "lon_deg": -9.7, "observer": {"eye_height_m": 2.5}}')
 
 
 def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
