@@ -18,6 +18,9 @@ def run(args):
         print(json.dumps({"error_nm": summary["error_nm"], "inside_ellipse": summary["inside_ellipse"],
                           "dr_error_nm": summary["dr_error_nm"], "contacts": summary["contacts"],
                           "labels_correct": summary["labels_correct"], "sync": summary["sync"],
-                          "wall_s": summary["wall_s"], "fix": summary["fix"], "written": summary["written"]},
+                          "wall_s": summary["wall_s"], "fix": summary["fix"], "written": summary["written"],
+                          "onboard": summary["onboard"],
+                          "timer": None if summary["timer"] is None else
+                          {k: v for k, v in summary["timer"].items() if k != "session_text"}},
                          indent=1))
     return 0

@@ -23,8 +23,17 @@ navigator's notes name the image of most contacts; three are left unlabelled
 (the engine's identification labels them) and one is mislabelled (the fix
 rejects it, finds the image it fits and reads it as that image).
 
-Chain.  The contact times go to the virtual timer (``device.sim``) as button
-presses in simulated time; the host syncs its log over the pseudo-terminal
+Chain.  The virtual timer (``device.sim``) is switched on 25 min before the first
+contact; the host pushes it the instrument and the session's DR track with the
+observer over the timer link (``host.sync.push`` through ``host.timer_client``, as
+``limbclock push`` does: checked, sent in CRC-checked frames, read back; the
+transport is the virtual timer's in-process loopback with the same 0.2 % byte
+faults, so simulated time stands still while the host talks), and
+the timer shows its next predicted contact and countdown.  The contact times
+are pressed in simulated time; 90 s after the last one the navigator holds the
+button for the on-board fix, and the timer reduces the session itself (no
+notes: it identifies every contact).  The demo prints the timer's display at
+three moments and compares its fix with the host's.  Then the host syncs the log over the pseudo-terminal
 (whose link damages 0.2 % of the bytes) into a fresh archive, syncs again to
 show that nothing is stored twice, attaches conditions, instrument and DR track to the
 session, reduces it (``engine.reduce_session``), stores the fix, draws the
@@ -39,7 +48,7 @@ import sys
 import time
 
 from engine import almanac, instrument, model, plan, sphere, timescale
-from engine.angles import fmt_lat, fmt_lon
+from engine.angles import cosd, fmt_lat, fmt_lon
 from host import archive, exports
 from host.cautions import CAUTION_TEXT
 
@@ -61,6 +70,8 @@ ALTITUDE_SIGMA_ARCMIN = 0.40
 UNLABELLED = 3
 DEVICE_ID = "LC-DEMO-07"
 LINK_FAULTS = 0.002          # fraction of serial bytes the virtual link drops or corrupts
+SWITCH_ON_S = 25 * 60        # the timer is switched on this long before the first contact
+FIX_AFTER_S = 90             # the navigator holds the button for the on-board fix this long after the last contact
 
 
 _OUT = [sys.stdout]
@@ -137,19 +148,64 @@ def _timer_session(contacts, inst):
                           "image": None} for c in contacts]}
 
 
-def _sync_through_virtual_timer(session_path, state_dir, db_path, expect):
-    """Start the virtual timer on a pseudo-terminal, let it press, sync. Returns the sync summary
-    or None when the virtual timer is not available in this build."""
+def _show_display(when, lines):
+    say("  [timer %s] %s" % (when, " | ".join(lines)))
+
+
+def _timer_day(session_path, inst_path, state_dir, db_path, expect):
+    """The virtual timer's day: the host pushes the instrument and the session's DR track + observer
+    over the link (``host.sync.push``, what ``limbclock push`` does), the timer shows the next contact
+    while the navigator presses the button at the contacts, then the fix gesture (an 8-11 s hold)
+    reduces on board; last the host syncs the log over a pseudo-terminal.  Returns ``(sync summary,
+    timer dict)``, or ``(None, None)`` when the virtual timer is not available in this build."""
     try:
         from device.sim import VirtualTimer
         from host import sync
+        from host.timer_client import TimerClient
     except ImportError as exc:
         say("  (virtual timer not available in this build: %s)" % exc)
-        return None
+        return None, None
     with open(session_path, "r", encoding="utf-8") as f:
         text = f.read()
-    vt = VirtualTimer(session=text, state_dir=state_dir, device_id=DEVICE_ID, link_faults=LINK_FAULTS, seed=SEED)
-    vt.run_contacts()          # the day's presses, in simulated time
+    presses = json.loads(text)["contacts"]
+    first_us = timescale.parse_utc(presses[0]["utc"])
+    last_us = timescale.parse_utc(presses[-1]["utc"])
+    fix_at_us = last_us + FIX_AFTER_S * 1000000
+    vt = VirtualTimer(session=text, state_dir=state_dir, device_id=DEVICE_ID, link_faults=LINK_FAULTS, seed=SEED,
+                      fix_at_us=fix_at_us, start_us=first_us - SWITCH_ON_S * 1000000)
+    vt.advance_to(vt.start_us + 30000000)            # switched on: the clock locks to GPS
+    client = TimerClient(vt.loopback())               # the same frames and link faults as the serial port
+    timer = {"pushed": [], "display": []}
+    for slot, path in (("instrument", inst_path), ("track", session_path)):
+        with open(path, "rb") as f:
+            res = sync.push(client, slot, f.read())
+        timer["pushed"].append({"slot": slot, "size": res["size"], "crc32": res["crc32"]})
+        say("  pushed %s (%s, %d bytes) over the link: read back and verified, CRC-32 %s"
+            % (slot, os.path.basename(path), res["size"], res["crc32"]))
+    timer["retried"] = client.retried
+
+    def look(when):
+        lines = list(client.status()["display"])
+        timer["display"].append({"when": when, "utc": timescale.format_utc(vt.now_us(), 0), "lines": lines})
+        _show_display(when, lines)
+    look("before the first contact")
+    mid = presses[len(presses) // 3]
+    vt.advance_to(timescale.parse_utc(mid["utc"]) + 60000000)
+    look("a minute after a contact")
+    vt.advance_to(fix_at_us + 20000000)              # the last presses, then the fix gesture
+    look("after the fix gesture")
+    st = client.status()
+    timer["onboard_fix"] = st["onboard_fix"]
+    timer["onboard_fix_error"] = st["onboard_fix_error"]
+    if vt.fw is not None:
+        # what the timer reduced, exactly (read before the sync lets it reclaim the records)
+        from device.onboard import iter_records
+        log = vt.fw.log
+        try:
+            timer["session_text"] = vt.fw.onboard.session_text(lambda: iter_records(log), vt.fw.session)
+        except ValueError:
+            timer["session_text"] = None
+    vt.advance_to(max(vt.now_us(), vt.end_contacts_us))
     port = vt.start()
     try:
         say("  virtual timer %s on %s: %d presses logged; the link damages %.1f %% of the bytes"
@@ -170,7 +226,7 @@ def _sync_through_virtual_timer(session_path, state_dir, db_path, expect):
             time.sleep(0.2)
         again = sync.sync_port(port, db_path, progress=False)      # idempotent: nothing new, nothing twice
         total["again"] = {"new": again["new"], "duplicates": again["duplicates"]}
-        return total
+        return total, timer
     finally:
         vt.stop()
 
@@ -213,8 +269,8 @@ def _run(out_dir):
     if os.path.isdir(state_dir):
         import shutil
         shutil.rmtree(state_dir)
-    say("step 1: button presses on the virtual timer, sync over the serial link")
-    summary = _sync_through_virtual_timer(timer_session, state_dir, db_path, len(contacts))
+    say("step 1: the timer: instrument and DR track pushed, button presses, on-board fix, sync over the serial link")
+    summary, timer = _timer_day(timer_session, inst_path, state_dir, db_path, len(contacts))
     conn = archive.connect(db_path)
     if summary is None:
         say("  storing the contacts in the archive directly instead")
@@ -261,6 +317,7 @@ def _run(out_dir):
     images = result.get("images") or []
     ok_id = sum(1 for c, got in zip(contacts, images) if got == c["image"])
     say("  image labels after identification: %d of %d match the truth" % (ok_id, len(contacts)))
+    onboard = _compare_onboard(timer, result, session_path)
 
     say("step 4: plots and exports in %s" % out_dir)
     from host import plots
@@ -288,6 +345,11 @@ def _run(out_dir):
     say("against the scenario's truth at %s: %s %s" % (result["utc"], fmt_lat(true_lat, 2), fmt_lon(true_lon, 2)))
     say("  fix error %.2f nmi, %s the 95%% ellipse%s" % (
         err_nm, "inside" if inside else "OUTSIDE", "" if dr_err is None else "; the DR alone was %.2f nmi off" % dr_err))
+    if onboard and onboard["fix"]:
+        ob_err = sphere.distance_nm(onboard["fix"]["lat_deg"], onboard["fix"]["lon_deg"], true_lat, true_lon)
+        onboard["error_nm"] = ob_err
+        say("  the timer's own fix: error %.2f nmi, %s its 95%% ellipse" % (
+            ob_err, "inside" if _inside_ellipse(onboard["fix"], true_lat, true_lon) else "OUTSIDE"))
     elapsed = time.time() - t_start
     say("  (demo wall time %.1f s)" % elapsed)
     say("")
@@ -295,12 +357,49 @@ def _run(out_dir):
     conn.close()
     return {"fix": result, "error_nm": err_nm, "inside_ellipse": inside, "dr_error_nm": dr_err,
             "sync": summary, "contacts": len(contacts), "labels_correct": ok_id, "wall_s": elapsed,
-            "written": written}
+            "written": written, "timer": timer, "onboard": onboard}
+
+
+def _compare_onboard(timer, result, session_path):
+    """Say how the timer's own fix compares with the host's fix, and with the host's reduction of
+    exactly the session the timer reduced; returns ``{"fix", "error", "distance_nm",
+    "same_content_nm", "reaction_delay_s"}`` (None without the virtual timer)."""
+    if timer is None:
+        return None
+    f = timer.get("onboard_fix")
+    if f is None:
+        say("  the timer's own fix failed: %s" % timer.get("onboard_fix_error"))
+        return {"fix": None, "error": timer.get("onboard_fix_error"), "distance_nm": None,
+                "same_content_nm": None, "reaction_delay_s": None}
+    d_nm = sphere.distance_nm(f["lat_deg"], f["lon_deg"], result["lat_deg"], result["lon_deg"])
+    say("  the timer's own fix: %s %s at %sZ, %d contacts used, %d rejected (it has no notes: it identified "
+        "every contact itself)" % (fmt_lat(f["lat_deg"], 2), fmt_lon(f["lon_deg"], 2), f["utc"][11:19],
+                                   f["contacts_used"], f["rejected"]))
+    same_nm = None
+    if timer.get("session_text"):
+        import engine
+        r = engine.reduce_session(timer["session_text"])
+        same_nm = sphere.distance_nm(f["lat_deg"], f["lon_deg"], r["lat_deg"], r["lon_deg"])
+    with open(session_path, "r", encoding="utf-8") as fh:
+        archived = json.load(fh)["instrument"]
+    delay_s = None
+    if timer.get("session_text"):
+        delay_s = json.loads(timer["session_text"])["instrument"].get("reaction_delay_s")
+    why = ""
+    if delay_s and "reaction_delay_s" not in archived:
+        # the Sun's hour angle turns 15 deg/h = 0.25'/s; one arcminute of longitude is cos(lat) nmi
+        shift_nm = delay_s * 0.25 * cosd(f["lat_deg"])
+        why = ": the timer applies the pushed instrument's %.1f s reaction delay, the archive's session file " \
+              "carries none (0.25'/s of the Sun's hour angle: %.3f nmi of longitude here)" % (delay_s, shift_nm)
+    say("  %.3f nmi from the host's fix%s" % (d_nm, why))
+    if same_nm is not None:
+        say("  %.3f nmi from the host's reduction of the very session the timer reduced" % same_nm)
+    return {"fix": f, "error": None, "distance_nm": d_nm, "same_content_nm": same_nm, "reaction_delay_s": delay_s}
 
 
 def _inside_ellipse(result, lat, lon):
     """Is the position inside the 95 % ellipse of the fix? (Mahalanobis form of the ellipse)"""
-    from engine.angles import cosd, sind
+    from engine.angles import sind
     e = result.get("ellipse_95")
     if not e:
         return False

@@ -52,6 +52,51 @@ def test_demo_runs_the_whole_chain(demo):
     assert "fix error" in human and "shade glass" in human.splitlines()[-3]
 
 
+def test_demo_shows_the_timers_own_display_and_fix(demo):
+    """The instrument and the DR track + observer reach the timer over the link (verified by CRC-32,
+    ITU-T V.42 / IEEE 802.3); the timer shows the countdown to its next contact and, after the fix
+    gesture, its own fix, which the host's engine reproduces from the very session the timer reduced.
+    Against the host's fix of the archived session the one difference is the instrument's reaction
+    delay, which the archive's session file does not carry: 0.2 s at the Sun's hour-angle rate of
+    15 deg/h (common practice) = 0.05' of longitude = 0.035 nmi at 45 N."""
+    import re
+    from engine import timescale
+    from engine.angles import cosd
+    from host import demo as scenario
+    out, human, s = demo
+    timer, ob = s["timer"], s["onboard"]
+    assert [p["slot"] for p in timer["pushed"]] == ["instrument", "track"]
+    with open(os.path.join(out, "instrument.json"), "rb") as f:
+        assert timer["pushed"][0]["size"] == len(f.read())
+    assert "pushed track (timer-presses.json" in human
+    # the countdown before the first contact announces it (DR 4 nmi off: within 90 s of the press)
+    first = timer["display"][0]
+    assert first["when"] == "before the first contact"
+    m = re.match(r"in (\d\d):(\d\d) Zn (\d\d\d)$", first["lines"][5])
+    assert first["lines"][4] == "NEXT i01 SUN LL rise" and m, first["lines"]
+    announced = timescale.parse_utc(first["utc"]) + (int(m.group(1)) * 60 + int(m.group(2))) * 1000000
+    from engine import almanac
+    timed = scenario.contact_times(almanac.load(), scenario.build_instrument()[1])
+    assert timed[0]["image"] == "i01" and abs(announced - timed[0]["utc_us"]) < 90000000
+    assert abs(int(m.group(3)) - timed[0]["zn_deg"]) < 2
+    assert "[timer a minute after a contact]" in human and "NEXT" in timer["display"][1]["lines"][4]
+    # the fix gesture: the display and the status carry the timer's own fix
+    shown = timer["display"][2]["lines"]
+    f = ob["fix"]
+    assert shown[3] == "FIX %d used %d rej" % (f["contacts_used"], f["rejected"])
+    from device.onboard import fmt_position
+    assert shown[4] == fmt_position(f["lat_deg"], f["lon_deg"]) and shown[5].startswith("95% ")
+    assert f["contacts_used"] + f["rejected"] == s["contacts"] and f["utc"] == s["fix"]["utc"]
+    assert "the timer's own fix:" in human
+    assert ob["same_content_nm"] < 1e-3
+    assert ob["reaction_delay_s"] == scenario.REACTION_S
+    expected_nm = scenario.REACTION_S * 0.25 * cosd(f["lat_deg"])
+    assert ob["distance_nm"] < 0.05 and abs(ob["distance_nm"] - expected_nm) < 0.005, ob["distance_nm"]
+    assert "reaction delay" in human
+    # both fixes beat the DR against the scenario's truth
+    assert ob["error_nm"] < s["dr_error_nm"]
+
+
 def test_demo_files(demo):
     out, _, s = demo
     fix = s["fix"]
