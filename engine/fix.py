@@ -131,12 +131,6 @@ def ellipse(cnn, cne, cee, k2):
     return math.sqrt(k2 * lmax), math.sqrt(k2 * lmin), ang
 
 
-class _Line:
-    """Working data of one usable contact."""
-    __slots__ = ("c", "dev_deg", "t_us", "group", "rate", "refr", "var_ind", "vn", "ve", "sigma_nm", "ho", "hc", "zn",
-                 "p", "p_dr", "lat", "lon", "hc_dr")
-
-
 def _num_extra(d, key, default):
     v = d.get(key, None)
     if (isinstance(v, int) or isinstance(v, float)) and not isinstance(v, bool) and v == v and v - v == 0:
@@ -150,10 +144,11 @@ def _median(xs):
     return v[n // 2] if n % 2 else 0.5 * (v[n // 2 - 1] + v[n // 2])
 
 
-def _huber_factor(use):
+def _huber_factor(use, sigma, p):
     """Diagonal "Cholesky factor" (a list of floats) of the Huber-reweighted variances
-    sigma^2 max(1, |p|/(k sigma)) (Huber 1964, in the iteratively reweighted form)."""
-    return [ln.sigma_nm * math.sqrt(max(1.0, abs(ln.p) / (HUBER_K * ln.sigma_nm))) for ln in use]
+    sigma^2 max(1, |p|/(k sigma)) (Huber 1964, in the iteratively reweighted form) of the
+    lines ``use`` (indices into the columns ``sigma`` and ``p``)."""
+    return [sigma[i] * math.sqrt(max(1.0, abs(p[i]) / (HUBER_K * sigma[i]))) for i in use]
 
 
 # Small dense linear algebra on lists, in O(n^2) memory for a board's heap: the covariance
@@ -185,10 +180,10 @@ def _cholesky(items, cov):
 
 
 def _forward(L, v):
-    """y with L y = v."""
+    """y with L y = v (see ``_like``)."""
     if not isinstance(L[0], _ROW):
-        return [x / d for x, d in zip(v, L)]
-    y = []
+        return _like(v, [x / d for x, d in zip(v, L)])
+    y = _array('d') if type(v[0]) is float else []
     for i, row in enumerate(L):
         s = v[i]
         for k in range(i):
@@ -198,11 +193,11 @@ def _forward(L, v):
 
 
 def _backward(L, y):
-    """x with L^T x = y."""
+    """x with L^T x = y (see ``_like``)."""
     if not isinstance(L[0], _ROW):
-        return [x / d for x, d in zip(y, L)]
+        return _like(y, [x / d for x, d in zip(y, L)])
     n = len(L)
-    x = [0.0] * n
+    x = _zeros(n) if type(y[0]) is float else [0.0] * n
     for i in range(n - 1, -1, -1):
         s = y[i]
         for k in range(i + 1, n):
@@ -212,11 +207,12 @@ def _backward(L, y):
 
 
 def _inverse_diagonal(L):
-    """Diagonal of S^-1 = L^-T L^-1: the squared norms of the columns of L^-1."""
+    """Diagonal of S^-1 = L^-T L^-1: the squared norms of the columns of L^-1 (an array('d'))."""
     n = len(L)
-    out = []
+    out = _array('d')
+    z = _zeros(n)
     for i in range(n):
-        z = {i: 1.0 / L[i][i]}
+        z[i] = 1.0 / L[i][i]
         total = z[i] * z[i]
         for r in range(i + 1, n):
             row = L[r]
@@ -227,6 +223,18 @@ def _inverse_diagonal(L):
             total += z[r] * z[r]
         out.append(total)
     return out
+
+
+def _zeros(n):
+    """array('d') of n zeros."""
+    return _array('d', [0.0] * n)
+
+
+def _like(v, values):
+    """``values`` (a list) as an array('d') (unboxed) when ``v`` holds plain floats; kept a list
+    otherwise, so that another number type (tests/test_fix_float32.py's float32 emulation of a
+    board) is not turned into double precision on the way."""
+    return _array('d', values) if type(v[0]) is float else values
 
 
 def _dot(a, b):
@@ -271,7 +279,13 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     if abs(delay_s) > 0.0:
         warnings.append("contact times corrected for a reaction delay of %.2f s" % delay_s)
 
-    lines = []
+    # the usable contacts ("lines"), numbered 0..n-1 in the session's order: their working data are
+    # parallel columns (unboxed array('d'): 8 bytes a number, where an object per line with a
+    # dozen float attributes took about 900 bytes of a board's heap)
+    lc = []                                     # the contact of each line
+    t_l = []                                    # instant (int us), reaction delay removed
+    dev_l, rate_l, vn_l, ve_l, refr_l, var_l = (_array('d'), _array('d'), _array('d'), _array('d'),
+                                                _array('d'), _array('d'))
     reasons = {}
     for c in contacts:
         if c.void:
@@ -280,25 +294,26 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         if c.image is None:
             reasons[c.index] = "image not identified"
             continue
-        ln = _Line()
-        ln.c = c
-        ln.t_us = c.t_us - delay_us
+        t_us = c.t_us - delay_us if delay_us else c.t_us
         dev = session.deviation_of(c.image)
         calibrated = session.image_extra.get(c.image, {}).get("source") == "calibrated"
         yaw_mean, yaw_rms = yaw_sigma_arcmin(dev, opt["yaw_sigma_deg"])
-        ln.dev_deg = dev if calibrated else dev - yaw_mean / 60.0
-        ln.group = c.image
-        lat, lon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
-        _, rate = sextant_altitude_deg(alm, c.body, c.limb, ln.t_us, lat, lon, obs, dut1_us)
-        ln.rate = rate * 60.0                                         # arcmin/s
-        zn0 = contact_terms(alm, c.body, c.limb, dev, ln.t_us, lat, lon, obs, dut1_us)[2]
-        dt_h = (ln.t_us - epoch) / 3.6e9
-        ln.vn, ln.ve = cosd(zn0) * dt_h, sind(zn0) * dt_h             # LOP shift per knot of velocity error
+        lat, lon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, t_us - epoch)
+        _, rate = sextant_altitude_deg(alm, c.body, c.limb, t_us, lat, lon, obs, dut1_us)
+        rate = rate * 60.0                                            # arcmin/s
+        zn0 = contact_terms(alm, c.body, c.limb, dev, t_us, lat, lon, obs, dut1_us)[2]
+        dt_h = (t_us - epoch) / 3.6e9
         ha = dev - dip_arcmin(obs.eye_height_m) / 60.0
-        ln.refr = refraction_arcmin(ha, obs.temperature_c, obs.pressure_hpa)
         st2 = opt["sigma_time_s"] ** 2 + c.sigma_s ** 2
-        ln.var_ind = ln.rate * ln.rate * st2 + yaw_rms * yaw_rms + opt["sigma_contact_arcmin"] ** 2
-        lines.append(ln)
+        lc.append(c)
+        t_l.append(t_us)
+        dev_l.append(dev if calibrated else dev - yaw_mean / 60.0)
+        rate_l.append(rate)
+        vn_l.append(cosd(zn0) * dt_h)                                 # LOP shift per knot of velocity error
+        ve_l.append(sind(zn0) * dt_h)
+        refr_l.append(refraction_arcmin(ha, obs.temperature_c, obs.pressure_hpa))
+        var_l.append(rate * rate * st2 + yaw_rms * yaw_rms + opt["sigma_contact_arcmin"] ** 2)
+    n_lines = len(lc)
 
     sig_img = {}
     for iid, _, s in session.images:
@@ -307,19 +322,20 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     vel_sigma = 0.0 if tr.known else _num_extra(session.track_extra, "velocity_sigma_kn", opt["velocity_sigma_kn"])
 
     def cov(a, b, same):
-        v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * a.refr * b.refr + \
-            tb_sigma * tb_sigma * a.rate * b.rate + vel_sigma * vel_sigma * (a.vn * b.vn + a.ve * b.ve)
-        if a.group == b.group:
-            v += sig_img[a.group] ** 2
+        v = opt["sigma_dip_arcmin"] ** 2 + opt["kappa"] ** 2 * refr_l[a] * refr_l[b] + \
+            tb_sigma * tb_sigma * rate_l[a] * rate_l[b] + vel_sigma * vel_sigma * (vn_l[a] * vn_l[b] + ve_l[a] * ve_l[b])
+        group = lc[a].image
+        if group == lc[b].image:
+            v += sig_img[group] ** 2
         if same:
-            v += a.var_ind
+            v += var_l[a]
         return v
 
     chol_cache = {}
 
     def factor(use):
         """Cholesky factor of the a-priori covariance of the lines in ``use`` (cached)."""
-        key = tuple(ln.c.index for ln in use)
+        key = tuple(use)
         if key not in chol_cache:
             L = _cholesky(use, cov)
             if L is None:
@@ -328,24 +344,28 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             chol_cache[key] = L
         return chol_cache[key]
 
-    for ln in lines:
-        ln.sigma_nm = math.sqrt(cov(ln, ln, True))
+    sigma_l = _array('d', [math.sqrt(cov(i, i, True)) for i in range(n_lines)])
+    # azimuth and intercept (arcmin) at the last evaluated position: lists, they keep the number
+    # type of the model's results (see _like)
+    zn_l = [0.0] * n_lines
+    p_l = [0.0] * n_lines
 
     def evaluate(use, lat_e, lon_e, bias):
-        for ln in use:
-            lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
-            ho, hc, zn = contact_terms(alm, ln.c.body, ln.c.limb, ln.dev_deg + bias / 60.0, ln.t_us, lat, lon,
-                                       obs, dut1_us)
-            ln.ho, ln.hc, ln.zn, ln.lat, ln.lon = ho, hc, zn, lat, lon
-            ln.p = (ho - hc) * 60.0
+        for i in use:
+            c = lc[i]
+            lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, t_l[i] - epoch)
+            ho, hc, zn = contact_terms(alm, c.body, c.limb, dev_l[i] + bias / 60.0, t_l[i], lat, lon, obs, dut1_us)
+            zn_l[i] = zn
+            p_l[i] = (ho - hc) * 60.0
 
     def normal(use, L, with_bias):
         """Whitened design columns At (L^-1 A), whitened intercepts pt, normal matrix N, right side."""
-        cols = [[cosd(ln.zn) for ln in use], [sind(ln.zn) for ln in use]]
+        cols = [[cosd(zn_l[i]) for i in use], [sind(zn_l[i]) for i in use]]
         if with_bias:
             cols.append([-1.0] * len(use))
         At = [_forward(L, col) for col in cols]
-        pt = _forward(L, [ln.p for ln in use])
+        cols = None
+        pt = _forward(L, [p_l[i] for i in use])
         N = [[_dot(r, c) for c in At] for r in At]
         return At, pt, N, [_dot(r, pt) for r in At]
 
@@ -359,8 +379,9 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         for its in range(1, MAX_ITERATIONS + 1):
             evaluate(use, lat_e, lon_e, bias)
             if huber:
-                L = _huber_factor(use)
+                L = _huber_factor(use, sigma_l, p_l)
             At, pt, N, rhs = normal(use, L, with_bias)
+            At = pt = None
             Ninv = invert(N)
             if Ninv is None:
                 raise FixError("the lines of position do not cross (azimuths too alike): no fix")
@@ -386,7 +407,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             warnings.append("the fix did not converge in %d iterations" % MAX_ITERATIONS)
         evaluate(use, lat_e, lon_e, bias)
         if huber:
-            L = _huber_factor(use)
+            L = _huber_factor(use, sigma_l, p_l)
         At, pt, N, rhs = normal(use, L, with_bias)
         Ninv = invert(N)
         if Ninv is None:
@@ -403,10 +424,10 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         Ninv = invert(N)
         return Ninv is not None and Ninv[2][2] * N[2][2] <= MAX_OFFSET_VIF
 
-    use = list(lines)
+    use = list(range(n_lines))                  # the lines in use (indices)
     if len(use) < 2:
         raise FixError("%d usable contact(s): a fix needs at least two lines of position" % len(use))
-    rejected_reason = {}
+    rejected_w = {}                             # line -> its rejection statistic
     lat_e, lon_e, bias = dr_lat, dr_lon, 0.0
     iterations = 0
     # robust first pass: Huber IRLS, dropping gross blunders (> PRESCREEN_K robust sigma) one at a time
@@ -414,13 +435,14 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         with_bias = offset_estimable(use)
         lat_e, lon_e, bias, _, _, _, _, its = solve(use, lat_e, lon_e, bias if with_bias else 0.0, with_bias, True)
         iterations += its
-        ratios = [abs(ln.p) / ln.sigma_nm for ln in use]
+        ratios = [abs(p_l[i]) / sigma_l[i] for i in use]
         scale = max(1.0, 1.4826 * _median(ratios))
         worst = max(range(len(use)), key=lambda i: ratios[i])
         if ratios[worst] <= PRESCREEN_K * scale:
             break
         bad = use.pop(worst)
-        rejected_reason[bad.c.index] = (bad, ratios[worst] / scale)
+        rejected_w[bad] = ratios[worst] / scale
+    ratios = None
     # least squares with the full error model, then Baarda's data snooping
     while True:
         with_bias = offset_estimable(use)
@@ -434,7 +456,9 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         if dof < 1:
             break
         g = _backward(L, pt)                                      # S^-1 e
+        pt = None
         B = [_backward(L, col) for col in At]                    # columns of S^-1 A
+        At = None
         sinv_diag = _inverse_diagonal(L)
         worst, worst_w = -1, 0.0
         for i in range(n):
@@ -445,10 +469,11 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             w = g[i] / math.sqrt(m_ii)
             if abs(w) > abs(worst_w):
                 worst, worst_w = i, w
+        g = B = sinv_diag = bi = None
         if worst < 0 or abs(worst_w) <= REJECT_W or n - 1 < 2:
             break
         bad = use.pop(worst)
-        rejected_reason[bad.c.index] = (bad, worst_w)
+        rejected_w[bad] = worst_w
 
     cnn, cne, cee = Ninv[0][0], Ninv[0][1], Ninv[1][1]
     k2 = ellipse_k2(s0, dof)
@@ -456,14 +481,13 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     if dof < 1:
         warnings.append("no redundancy (%d contacts for %d unknowns): the ellipse rests on the a-priori "
                         "error model alone and blunders cannot be detected" % (len(use), u))
-    if deviation_offset == "auto" and u == 2 and len(lines) >= 4:
+    if deviation_offset == "auto" and u == 2 and n_lines >= 4:
         warnings.append("deviation offset not estimable from these azimuths: held at 0 "
                         "(contacts on both sides of the meridian make it estimable)")
-    zns = [ln.zn for ln in use]
-    spread = _azimuth_spread(zns)
+    spread = _azimuth_spread([zn_l[i] for i in use])
     if spread < 30.0:
         warnings.append("poor geometry: the lines of position span only %.0f deg of azimuth" % spread)
-    run_h = (max(ln.t_us for ln in use) - min(ln.t_us for ln in use)) / 3.6e9
+    run_h = (max(t_l[i] for i in use) - min(t_l[i] for i in use)) / 3.6e9
     if run_h > 0.5 and not tr.known:
         warnings.append("running fix over %.1f h: it assumes the DR course %.0f deg and speed %.1f kn held"
                         % (run_h, tr.course_deg, tr.speed_kn))
@@ -471,49 +495,53 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     # per-contact report: the working matrices go first (a board's heap holds one or the other)
     L = At = pt = g = B = sinv_diag = None
     chol_cache.clear()
+    zn_l = p_l = None
+    used = _zeros(n_lines)                      # 1.0 for a line in use
+    for i in use:
+        used[i] = 1.0
+    contacts_used = len(use)
+    use = None
     out_contacts = []
-    used_idx = set(ln.c.index for ln in use)
-    by_index = {}
-    for ln in lines:
-        by_index[ln.c.index] = ln
-    # evaluate rejected lines at the fix too, and the intercept of every line at the DR
-    for ln in lines:
-        lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
-        ho, hc, zn = contact_terms(alm, ln.c.body, ln.c.limb, ln.dev_deg + bias / 60.0, ln.t_us, lat, lon,
-                                   obs, dut1_us)
-        ln.ho, ln.hc, ln.zn, ln.lat, ln.lon, ln.p = ho, hc, zn, lat, lon, (ho - hc) * 60.0
-        dlat, dlon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, ln.t_us - epoch)
-        ho_dr, hc_dr, _ = contact_terms(alm, ln.c.body, ln.c.limb, ln.dev_deg + bias / 60.0, ln.t_us, dlat,
-                                        dlon, obs, dut1_us)
-        ln.p_dr = (ho_dr - hc_dr) * 60.0
+    rejected = []
+    k = 0                                       # the next line (lines are in the contacts' order)
     for c in contacts:
-        ln = by_index.get(c.index)
         entry = {"index": c.index, "utc": format_utc(c.t_us), "body": c.body, "limb": c.limb, "image": c.image,
                  "deviation_deg": None, "ho_deg": None, "hc_deg": None, "zn_deg": None, "intercept_nm": None,
                  "residual_nm": None, "sigma_nm": None, "used": False, "reason": reasons.get(c.index),
                  "direction": None, "suggest": None}
-        if ln is not None:
+        if k < n_lines and lc[k] is c:
+            # the line at the fix (rejected ones too), and its intercept at the DR
+            t_us = t_l[k]
+            dev = dev_l[k] + bias / 60.0
+            lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, t_us - epoch)
+            ho, hc, zn = contact_terms(alm, c.body, c.limb, dev, t_us, lat, lon, obs, dut1_us)
+            dlat, dlon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, t_us - epoch)
+            ho_dr, hc_dr, _ = contact_terms(alm, c.body, c.limb, dev, t_us, dlat, dlon, obs, dut1_us)
+            p = (ho - hc) * 60.0
             entry["deviation_deg"] = session.deviation_of(c.image)
-            entry["ho_deg"] = ln.ho
-            entry["hc_deg"] = ln.hc
-            entry["zn_deg"] = ln.zn
-            entry["intercept_nm"] = ln.p_dr
-            entry["residual_nm"] = ln.p
-            entry["sigma_nm"] = ln.sigma_nm
-            entry["direction"] = "rising" if ln.rate >= 0.0 else "setting"
-            entry["used"] = c.index in used_idx
-            if c.index in rejected_reason:
-                entry["reason"], entry["suggest"] = _reject_reason(session, alm, ln, rejected_reason[c.index][1],
-                                                                   bias, obs, dut1_us, opt)
+            entry["ho_deg"] = ho
+            entry["hc_deg"] = hc
+            entry["zn_deg"] = zn
+            entry["intercept_nm"] = (ho_dr - hc_dr) * 60.0
+            entry["residual_nm"] = p
+            entry["sigma_nm"] = sigma_l[k]
+            entry["direction"] = "rising" if rate_l[k] >= 0.0 else "setting"
+            entry["used"] = used[k] != 0.0
+            if k in rejected_w:
+                entry["reason"], entry["suggest"] = _reject_reason(session, alm, c, t_us, dev_l[k], lat, lon, p,
+                                                                   sigma_l[k], rejected_w[k], bias, obs, dut1_us,
+                                                                   opt)
+            k += 1
+        if not entry["used"]:
+            rejected.append(c.index)
         out_contacts.append(entry)
 
-    rejected = [c.index for c in contacts if c.index not in used_idx]
-    if rejected_reason:
+    if rejected_w:
         warnings.append("%d contact(s) rejected as blunders: %s"
-                        % (len(rejected_reason), ", ".join(str(i) for i in sorted(rejected_reason))))
+                        % (len(rejected_w), ", ".join(str(i) for i in sorted([lc[j].index for j in rejected_w]))))
     return {"format": FORMAT, "utc": format_utc(epoch), "lat_deg": lat_e, "lon_deg": lon_e,
             "ellipse_95": {"major_nm": major, "minor_nm": minor, "major_axis_deg": axis},
-            "contacts_used": len(use), "rejected": rejected, "images": [c.image for c in contacts],
+            "contacts_used": contacts_used, "rejected": rejected, "images": [c.image for c in contacts],
             "deviation_offset_arcmin": bias if u == 3 else None, "deviation_offset_estimated": u == 3,
             "sigma0": s0, "dr": {"lat_deg": dr_lat, "lon_deg": dr_lon}, "iterations": iterations,
             "warnings": warnings, "contacts": out_contacts}
@@ -531,30 +559,31 @@ def _azimuth_spread(zns):
     return best
 
 
-def _reject_reason(session, alm, ln, w, bias, obs, dut1_us, opt):
-    """Why a contact was rejected, with the mislabelled-image diagnosis: (text, suggestion)
-    where suggestion is None, {"image": id} or {"limb": "lower"|"upper"}."""
-    text = "residual %+.1f' = %.1f sigma" % (ln.p, abs(w))
-    c = ln.c
+def _reject_reason(session, alm, c, t_us, dev_deg, lat, lon, p, sigma_nm, w, bias, obs, dut1_us, opt):
+    """Why contact ``c`` (instant ``t_us`` less the reaction delay, deviation ``dev_deg`` with the yaw
+    mean removed, at ``lat``, ``lon`` with residual ``p`` and sigma ``sigma_nm`` at the fix) was
+    rejected, with the mislabelled-image diagnosis: (text, suggestion) where suggestion is None,
+    {"image": id} or {"limb": "lower"|"upper"}."""
+    text = "residual %+.1f' = %.1f sigma" % (p, abs(w))
     best = None
     for iid, dev, _ in session.images:
         if iid == c.image:
             continue
         d = dev if session.image_extra.get(iid, {}).get("source") == "calibrated" else \
             dev - yaw_sigma_arcmin(dev, opt["yaw_sigma_deg"])[0] / 60.0
-        ho, hc, _ = contact_terms(alm, c.body, c.limb, d + bias / 60.0, ln.t_us, ln.lat, ln.lon, obs, dut1_us)
+        ho, hc, _ = contact_terms(alm, c.body, c.limb, d + bias / 60.0, t_us, lat, lon, obs, dut1_us)
         r = (ho - hc) * 60.0
-        if abs(r) <= 3.0 * ln.sigma_nm and (best is None or abs(r) < abs(best[1])):
+        if abs(r) <= 3.0 * sigma_nm and (best is None or abs(r) < abs(best[1])):
             best = (iid, r, dev)
     if best is not None:
         spacing = (session.deviation_of(c.image) - best[2]) * 60.0
         text += "; %+.1f' = %.2f image spacing %s->%s: probably mislabelled (as %s it fits within %.1f')" % (
-            spacing, ln.p / spacing if spacing else 0.0, c.image, best[0], best[0], abs(best[1]))
+            spacing, p / spacing if spacing else 0.0, c.image, best[0], best[0], abs(best[1]))
         return text, {"image": best[0]}
     other = "upper" if c.limb == "lower" else "lower"
-    ho, hc, _ = contact_terms(alm, c.body, other, ln.dev_deg + bias / 60.0, ln.t_us, ln.lat, ln.lon, obs, dut1_us)
+    ho, hc, _ = contact_terms(alm, c.body, other, dev_deg + bias / 60.0, t_us, lat, lon, obs, dut1_us)
     r = (ho - hc) * 60.0
-    if abs(r) <= 3.0 * ln.sigma_nm:
+    if abs(r) <= 3.0 * sigma_nm:
         text += "; fits the %s limb within %.1f': probably the wrong limb" % (other, abs(r))
         return text, {"limb": other}
     return text, None

@@ -46,7 +46,9 @@ candidates fit.  Several fit more often than not with only a few contacts:
 report, do not choose.
 """
 import math
+from array import array as _array
 
+from engine.almanac import Position
 from engine.angles import cosd
 from engine.model import contact_residual_arcmin, sextant_altitude_deg
 from engine.sphere import move_nm
@@ -66,26 +68,41 @@ class IdentifyError(ValueError):
 
 class _CachedAlmanac:
     """Memoises ``position(body, t_us, dut1_us)``: the grid search asks for the same instants
-    at many positions."""
+    at many positions.  The numbers of a place are kept unboxed in a small array('d') (a
+    Position object took about 400 bytes of a board's heap; one array for all places would be
+    a block that a fragmented heap cannot find) and a Position is made again on each call;
+    another number type than float (an emulation of single precision) is kept as the
+    almanac's object."""
     __slots__ = ("alm", "cache")
 
     def __init__(self, alm):
         self.alm = alm
-        self.cache = {}
+        self.cache = {}                 # key -> array('d') of the place's numbers, or the Position
 
     def position(self, body, t_us, dut1_us=0):
         key = (body, t_us, dut1_us)
-        p = self.cache.get(key)
-        if p is None:
-            p = self.cache[key] = self.alm.position(body, t_us, dut1_us)
-        return p
+        v = self.cache.get(key)
+        if v is None:
+            p = self.alm.position(body, t_us, dut1_us)
+            if type(p.gha_deg) is not float:
+                self.cache[key] = p
+            else:
+                self.cache[key] = _array('d', (p.gha_deg, p.dec_deg, p.sd_arcmin, p.hp_arcmin,
+                                               p.gha_rate_deg_per_s, p.dec_rate_deg_per_s))
+            return p
+        if not isinstance(v, _array):
+            return v
+        return Position(body, t_us, v[0], v[1], v[2], v[3], v[4], v[5])
 
     def span_us(self):
         return self.alm.span_us()
 
 
 class _Problem:
-    __slots__ = ("session", "alm", "contacts", "images", "sig", "dr", "dr_sigma", "labels")
+    """The contacts to identify.  An assignment (of an image to every contact) is a sequence of
+    indices into ``images`` (sorted by deviation): ``bytes`` (a tuple past 255 images), whose
+    entries cost a byte each where a tuple of image ids costs a pointer."""
+    __slots__ = ("session", "alm", "contacts", "images", "sig", "dr", "dr_sigma", "labels", "label_idx", "pack")
 
 
 def _setup(session, alm, dr_sigma_nm):
@@ -105,6 +122,9 @@ def _setup(session, alm, dr_sigma_nm):
             dr_sigma_nm = 1.0
     p.dr_sigma = float(dr_sigma_nm)
     p.labels = [c.image for c in p.contacts]
+    ids = [im[0] for im in p.images]
+    p.label_idx = [None if iid is None else ids.index(iid) for iid in p.labels]
+    p.pack = bytes if len(ids) < 256 else tuple
     sig_img = dict((iid, s if s is not None else DEFAULT_IMAGE_SIGMA_ARCMIN) for iid, _d, s in p.images)
     p.sig = []
     for c, (lat, lon) in zip(p.contacts, p.dr):
@@ -115,25 +135,33 @@ def _setup(session, alm, dr_sigma_nm):
 
 
 def _assign_at(p, positions, slack_nm=0.0):
-    """(assignment tuple, cost without prior) for contacts at the given positions; ``slack_nm``
-    (half the grid step) is added in quadrature to each sigma, so that a grid point a few miles
-    from an assignment's best position does not score it out."""
+    """(assignment, cost without prior) for contacts at the given positions (an iterable of
+    (lat, lon), one per contact); ``slack_nm`` (half the grid step) is added in quadrature to
+    each sigma, so that a grid point a few miles from an assignment's best position does not
+    score it out."""
     devs = [im[1] for im in p.images]
-    assign = []
+    assign = bytearray(len(p.contacts)) if p.pack is bytes else [0] * len(p.contacts)
     cost = 0.0
-    for k, c in enumerate(p.contacts):
-        lat, lon = positions[k]
+    k = 0
+    for lat, lon in positions:
+        c = p.contacts[k]
         hs = sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us, lat, lon, p.session.observer)[0]
-        if p.labels[k] is not None:
+        j = p.label_idx[k]
+        if j is not None:
             dev = p.session.deviation_of(p.labels[k])
-            assign.append(p.labels[k])
         else:
             j = _nearest(devs, hs)
             dev = devs[j]
-            assign.append(p.images[j][0])
+        assign[k] = j
         e = (hs - dev) * 60.0
         cost += e * e / (p.sig[k] * p.sig[k] + slack_nm * slack_nm)
-    return tuple(assign), cost
+        k += 1
+    return p.pack(assign), cost
+
+
+def _ids(p, assign):
+    """The image ids of an assignment."""
+    return [p.images[j][0] for j in assign]
 
 
 def _nearest(devs, x):
@@ -145,7 +173,9 @@ def _nearest(devs, x):
 
 
 def _offset_positions(p, north, east):
-    return [move_nm(lat, lon, north, east) for lat, lon in p.dr]
+    """The DR positions moved by (north, east) nmi, one at a time."""
+    for lat, lon in p.dr:
+        yield move_nm(lat, lon, north, east)
 
 
 def _refine(p, assign, north, east, iterations=5):
@@ -157,7 +187,7 @@ def _refine(p, assign, north, east, iterations=5):
         b2 = -w0 * east
         for k, c in enumerate(p.contacts):
             lat, lon = move_nm(p.dr[k][0], p.dr[k][1], north, east)
-            dev = p.session.deviation_of(assign[k])
+            dev = p.images[assign[k]][1]
             r, zn = contact_residual_arcmin(p.alm, c.body, c.limb, dev, c.t_us, lat, lon, p.session.observer)
             w = 1.0 / (p.sig[k] * p.sig[k])
             cz, sz = cosd(zn), math.sin(zn * math.pi / 180.0)
@@ -180,7 +210,7 @@ def _refine(p, assign, north, east, iterations=5):
     cost = (north * north + east * east) * w0
     for k, c in enumerate(p.contacts):
         lat, lon = move_nm(p.dr[k][0], p.dr[k][1], north, east)
-        r, _zn = contact_residual_arcmin(p.alm, c.body, c.limb, p.session.deviation_of(assign[k]), c.t_us,
+        r, _zn = contact_residual_arcmin(p.alm, c.body, c.limb, p.images[assign[k]][1], c.t_us,
                                          lat, lon, p.session.observer)
         cost += (r / p.sig[k]) ** 2
     return cost, north, east
@@ -213,31 +243,49 @@ def _min_spacing_arcmin(images):
 
 
 def _hypotheses(p, radius_nm, step_nm=None):
+    """{assignment: (cost, north, east)} of the grid search, at most ``KEEP_HYPOTHESES`` +
+    ``REFINE_TOP`` of them (see ``_prune``), in the order they were first met (pruning reorders
+    by cost).  While searching the table is two short lists, pruned in place: a dict growing
+    and made again at each pruning churns a board's heap with tables of a few hundred bytes."""
     spacing = _min_spacing_arcmin(p.images)
     if step_nm is None:
         step_nm = min(30.0, max(5.0, spacing / 3.0))
     n, step_nm = _grid(radius_nm, step_nm)
     w0 = 1.0 / (p.dr_sigma * p.dr_sigma)
-    best = {}
+    keys = []
+    vals = []                                   # (cost, north, east)
     for north, east in _grid_points(n, step_nm, radius_nm):
         assign, cost = _assign_at(p, _offset_positions(p, north, east), 0.5 * step_nm)
         cost += (north * north + east * east) * w0
-        if assign not in best or cost < best[assign][0]:
-            best[assign] = (cost, north, east)
-            if len(best) > KEEP_HYPOTHESES + REFINE_TOP:
-                best = _prune(best)
+        k = 0
+        while k < len(keys) and keys[k] != assign:
+            k += 1
+        if k == len(keys):
+            keys.append(assign)
+            vals.append((cost, north, east))
+            if len(keys) > KEEP_HYPOTHESES + REFINE_TOP:
+                _prune(keys, vals)
+        elif cost < vals[k][0]:
+            vals[k] = (cost, north, east)
+    best = {}
+    for k in range(len(keys)):
+        best[keys[k]] = vals[k]
     return best
 
 
-def _prune(best):
-    """Keep the ``KEEP_HYPOTHESES`` cheapest assignments.  Only the ``REFINE_TOP`` cheapest are
-    used, and an assignment dropped here is outranked by at least ``KEEP_HYPOTHESES`` others for
-    good (their costs only fall), so the result is the same with a bounded heap."""
-    kept = sorted(best.items(), key=lambda kv: kv[1][0])[:KEEP_HYPOTHESES]
-    out = {}
-    for k, v in kept:
-        out[k] = v
-    return out
+def _prune(keys, vals):
+    """Keep the ``KEEP_HYPOTHESES`` cheapest entries (ties in their order), in place.  Only the
+    ``REFINE_TOP`` cheapest are used, and an assignment dropped here is outranked by at least
+    ``KEEP_HYPOTHESES`` others for good (their costs only fall), so the result is the same with a
+    bounded heap."""
+    order = sorted(range(len(keys)), key=lambda k: vals[k][0])[:KEEP_HYPOTHESES]
+    kk = [keys[k] for k in order]
+    vv = [vals[k] for k in order]
+    del keys[len(kk):]
+    del vals[len(vv):]
+    for k in range(len(kk)):
+        keys[k] = kk[k]
+        vals[k] = vv[k]
 
 
 def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_CONFIDENCE):
@@ -268,7 +316,7 @@ def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_
             continue
         seen.add(assign)
         refined.append((cost, assign, north, east))
-    refined.sort(key=lambda r: (r[0], [_dev_rank(p, a) for a in r[1]]))
+    refined.sort(key=lambda r: (r[0], list(r[1])))       # ties: the lower images first
     best_cost = refined[0][0]
     weights = [math.exp(-0.5 * (r[0] - best_cost)) for r in refined]
     total = sum(weights)
@@ -283,6 +331,7 @@ def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_
             break
     out_contacts = []
     warnings = []
+    refined = [(r[0], _ids(p, r[1]), r[2], r[3]) for r in refined]
     best_assign = refined[0][1]
     for i, c in enumerate(p.contacts):
         given = p.labels[i] is not None
@@ -319,13 +368,6 @@ def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_
              "offset_nm": [round(r[2], 2), round(r[3], 2)]} for r, pr in zip(refined, probs)]
     return {"contacts": out_contacts, "hypotheses": hyps, "misfit_labels": misfit, "warnings": warnings,
             "dr_sigma_nm": p.dr_sigma, "radius_nm": radius_nm}
-
-
-def _dev_rank(p, image_id):
-    for k, im in enumerate(p.images):
-        if im[0] == image_id:
-            return k
-    return -1
 
 
 def identify_session(session, alm, dr_sigma_nm=None):
@@ -385,6 +427,8 @@ def cold_start(session, alm, top=5, coarse_deg=4.0):
         sub.images = p.images
         sub.sig = p.sig
         sub.labels = p.labels
+        sub.label_idx = p.label_idx
+        sub.pack = p.pack
         sub.dr_sigma = 1e4
         t = Track(t0, lat, lon, tr.course_deg, tr.speed_kn)
         sub.dr = [t.position_at(c.t_us) for c in p.contacts]
@@ -394,10 +438,10 @@ def cold_start(session, alm, top=5, coarse_deg=4.0):
             pos = [move_nm(la, lo, n2, e2) for la, lo in sub.dr]
             ss = 0.0
             for k, c in enumerate(p.contacts):
-                r, _z = contact_residual_arcmin(p.alm, c.body, c.limb, session.deviation_of(assign[k]), c.t_us,
+                r, _z = contact_residual_arcmin(p.alm, c.body, c.limb, p.images[assign[k]][1], c.t_us,
                                                 pos[k][0], pos[k][1], session.observer)
                 ss += r * r
-            cands.append((cost, pos[last][0], pos[last][1], assign, math.sqrt(ss / len(pos))))
+            cands.append((cost, pos[last][0], pos[last][1], _ids(p, assign), math.sqrt(ss / len(pos))))
     cands.sort(key=lambda c: c[0])
     out = []
     for cost, plat, plon, assign, rms in cands:
