@@ -8,6 +8,7 @@ import json
 import sys
 
 from host import archive
+from host.cautions import CAUTION_TEXT
 from host.errors import UserError
 
 
@@ -53,6 +54,7 @@ def run_sync(args):
               "on the timer; they are not in this one" % (res["not_on_timer"], res["device"]), file=sys.stderr)
     print("timer %s: %d new record(s), %d duplicate(s); archive holds up to seq %d (%s)"
           % (res["device"], res["new"], res["duplicates"], res["last_seq"], db))
+    print(CAUTION_TEXT)
     return 0
 
 
@@ -74,6 +76,7 @@ def run_push(args):
     print("sent %s (%d bytes) to timer %s; read back and verified, CRC-32 %s"
           % (slot, res["size"], res["device"], res["crc32"]))
     print(plan_text(res))
+    print(CAUTION_TEXT)
     return 0
 
 

@@ -127,6 +127,8 @@ def test_cli_push_track_over_a_pseudo_terminal(tmp_path):
         res = json.loads(p.stdout)
         p = limbclock("push", "--port", port, "--track", str(session))
         assert p.returncode == 0, p.stderr
+        q = limbclock("sync", "--port", port, "--db", str(tmp_path / "a.sqlite3"))
+        assert q.returncode == 0, q.stderr
     finally:
         vt.stop()
     held = vt.base_store.read("slot_track")
@@ -134,6 +136,9 @@ def test_cli_push_track_over_a_pseudo_terminal(tmp_path):
     assert res["next_contact"]["image"] == "i01" and abs(res["next_contact"]["t_us"] - REF_LOWER_I01) < 3000000
     assert "sent track (%d bytes)" % len(held) in p.stdout
     assert "the timer now shows the next contact: i01 sun lower limb, rising, at 2030-10-20T19:41:0" in p.stdout
+    from host.cautions import CAUTION_TEXT
+    assert p.stdout.rstrip("\n").endswith(CAUTION_TEXT)
+    assert q.stdout.startswith("timer LC-SIM1: 0 new record(s)") and q.stdout.rstrip("\n").endswith(CAUTION_TEXT)
 
 
 def test_cli_refuses_a_track_without_observer_before_opening_the_port(tmp_path):
