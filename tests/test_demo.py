@@ -69,6 +69,16 @@ def test_demo_shows_the_timers_own_display_and_fix(demo):
     with open(os.path.join(out, "instrument.json"), "rb") as f:
         assert timer["pushed"][0]["size"] == len(f.read())
     assert "pushed track (timer-presses.json" in human
+    # the timer's storage holds the instrument as sent and the DR track WITH the observer
+    from device.onboard import parse_track, track_file
+    flash = os.path.join(out, "timer-state", "flash")
+    with open(os.path.join(flash, "slot_instrument"), "rb") as f, open(os.path.join(out, "instrument.json"), "rb") as g:
+        assert f.read() == g.read()
+    with open(os.path.join(flash, "slot_track"), "rb") as f:
+        held = f.read()
+    assert held == track_file(scenario.DR_TRACK, scenario.OBSERVER)
+    assert parse_track(held) == (scenario.DR_TRACK, scenario.OBSERVER)
+    assert timer["pushed"][1]["size"] == len(held)
     # the countdown before the first contact announces it (DR 4 nmi off: within 90 s of the press)
     first = timer["display"][0]
     assert first["when"] == "before the first contact"
