@@ -86,4 +86,8 @@ def plan_text(res):
     if c:
         return "the timer now shows the next contact: %s %s %s limb, %s, at %s, Zn %03d" % (
             c["image"], c["body"], c["limb"], c["direction"], c["utc"], int(c["zn_deg"] + 0.5) % 360)
-    return "the timer shows no next contact: %s" % (res.get("plan_problem") or "none within its horizon")
+    if res.get("plan_problem"):
+        return "the timer shows no next contact: %s" % res["plan_problem"]
+    if res.get("clock_state") == "none":
+        return "the timer has no time yet (no GPS): it shows the next contact once it has"
+    return "the timer shows no next contact within its planning horizon (this limb)"

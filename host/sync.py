@@ -240,4 +240,4 @@ def push(client, slot, data, progress=None):
     st = client.status()          # the timer replans at once when a file arrives
     return {"device": info.get("device_id"), "slot": slot, "size": len(data), "crc32": "%08x" % crc,
             "verified": True, "timer": result, "next_contact": st.get("next_contact"),
-            "plan_problem": st.get("plan_problem")}
+            "plan_problem": st.get("plan_problem"), "clock_state": (st.get("clock") or {}).get("state")}

@@ -83,6 +83,21 @@ def test_push_a_track_file_is_sent_as_it_is_and_reread():
     assert res["next_contact"]["image"] == "i01"
 
 
+def test_push_before_the_timer_has_time_says_so():
+    """Just switched on, no GPS time yet: the file is stored; the plan waits for the clock."""
+    from host.cmd_sync import plan_text
+    doc = reference_session()
+    vt = VirtualTimer(contacts=[], start_us=REF_LOWER_I01 - 5 * 60 * 1000000)
+    client = TimerClient(vt.loopback(faults=0.0))
+    sync.push(client, "instrument", instrument_bytes(doc))
+    res = sync.push(client, "track", json.dumps(doc).encode())
+    assert res["clock_state"] == "none" and res["next_contact"] is None and res["plan_problem"] is None
+    assert plan_text(res) == "the timer has no time yet (no GPS): it shows the next contact once it has"
+    vt.advance_to(REF_LOWER_I01 - 4 * 60 * 1000000)           # the clock locks: the plan appears
+    st = client.status()
+    assert st["clock"]["state"] == "locked" and st["next_contact"]["image"] == "i01"
+
+
 @pytest.mark.parametrize("text, message", [
     (b"not json", "track file: not JSON"),
     (b"[1, 2]", "track file: expected a JSON object"),
