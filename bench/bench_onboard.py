@@ -6,13 +6,14 @@ fix).  Sessions: the first 30 contacts of ``vectors/sessions/sun_moon.json`` (Su
 times from DE421 + ERFA), also all 42, and the labelled variant (no identification).
 
 1. Heap (MicroPython unix port, fixed heap, ``tests/mpu.py``): the smallest contiguous free heap
-   in which the call succeeds (bisection to 4 KB; "4 layouts": in each of ``mpu.PADS``, since
+   in which the call succeeds (bisection to 2 KB; "4 layouts": in each of ``mpu.PADS``, since
    where blocks fall changes the need by a few KB), after the code and the timer's files are loaded
    (a board freezes the modules into flash: their bytecode takes no heap).  The port is 64-bit;
    a 32-bit board's objects are half the size (4-byte words, 16-byte GC blocks), so the board
    figure is estimated as half (measured: the reduction allocates 1.995 times the bytes here that
    it does in the 32-bit WebAssembly port), except that a microsecond instant is a small int here and a
-   heap-allocated long on a 32-bit board (a few dozen bytes per live instant).
+   heap-allocated long on a 32-bit board (a few dozen bytes per live instant), and the unboxed
+   numbers (``array('d')`` in the fix and identification, a few KB live) take 8 bytes on both.
    The WebAssembly port is shown growing its heap instead (``tests/mp/run_heap.mjs`` starts it small).
 2. Time: CPython, the WebAssembly port under node (``tests/mpy.py``), and an estimate for a
    100-200 MHz board from a pure-Python float loop timed in the WebAssembly port against an
@@ -84,7 +85,7 @@ def run():
                 ("reduce_session, 30 labelled, 1 layout", labelled % (json.dumps(doc30), t0),
                  "r = engine.reduce_session(text, alm)\n", (0,))]
         for label, setup, call, pads in rows:
-            kb = mpu.min_arena(setup, call, lo=65536, hi=393216, step=4096, pads=pads) / 1024.0
+            kb = mpu.min_arena(setup, call, lo=16384, hi=393216, step=2048, pads=pads) / 1024.0
             print("   %-46s %6.0f KB here  (32-bit board, estimated: %4.0f KB; target 64 KB, ratio %.2f)"
                   % (label, kb, kb / 2.0, kb / 2.0 / 64.0))
 

@@ -352,9 +352,13 @@ class Onboard:
         problem keeps the short message in ``fix_error`` and returns None."""
         self.fix_error = None
         try:
+            from engine.session import parse_session
             text = self.session_text(records, session_no)
+            s = parse_session(text, self.alm)
+            text = None             # the text is not held during the reduction (a few KB)
             import engine
-            r = engine.reduce_session(text, self.alm)
+            r = engine.reduce_session(s, self.alm)
+            s = None
         except MemoryError:
             self.fix_error = "no memory for the fix"
             return None

@@ -17,6 +17,11 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
     span), identify contacts whose image is null (``engine.identify``, when
     present), then compute the fix (``engine.fix.solve_fix``).
 
+    ``text`` may also be a Session already read by ``engine.session.parse_session``
+    with the same ``alm`` (so that a board can drop the text before the
+    reduction); it is reduced in place (identified images are written into its
+    contacts).
+
     With ``relabel`` (default), a contact rejected as a blunder that fits another
     image (or the other limb) within 3 sigma at the fix is read as that image
     and the fix is solved again; the relabelling is kept only when the contact
@@ -28,7 +33,8 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
     if alm is None:
         from engine import almanac as _almanac
         alm = _almanac.load()
-    s = _session.parse_session(text, alm)
+    s = text if isinstance(text, _session.Session) else _session.parse_session(text, alm)
+    text = None
     warnings = []
     if any(c.image is None and not c.void for c in s.contacts):
         try:
@@ -39,13 +45,17 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
             warnings = _identify.identify_session(s, alm) or []
     result = _fix.solve_fix(s, alm, at_us, deviation_offset)
     if relabel:
-        result = _relabel(s, alm, at_us, deviation_offset, result, _fix)
+        changed = _apply_suggestions(s, result)
+        if changed:
+            result = None       # one result (its per-contact report) on a board's heap at a time
+            result = _relabel(s, alm, at_us, deviation_offset, changed, _fix)
     result["warnings"] = list(warnings) + result["warnings"]
     return result
 
 
-def _relabel(s, alm, at_us, deviation_offset, result, _fix):
-    """Second pass: read rejected contacts as the image (or limb) they fit, keep what is then accepted."""
+def _apply_suggestions(s, result):
+    """Read each rejected contact with a suggestion as the image (or limb) it fits, in place;
+    returns {index: (image, limb) as labelled} of the contacts changed."""
     changed = {}
     for entry in result["contacts"]:
         sug = entry.get("suggest")
@@ -57,8 +67,13 @@ def _relabel(s, alm, at_us, deviation_offset, result, _fix):
             c.image = sug["image"]
         else:
             c.limb = sug["limb"]
-    if not changed:
-        return result
+    return changed
+
+
+def _relabel(s, alm, at_us, deviation_offset, changed, _fix):
+    """Second pass: the fix with the contacts ``changed`` read as they fit; the relabelling of those
+    then accepted is kept.  When none is, the labels go back and the first fix is solved again
+    (rather than held through the second solve: same result, half the heap)."""
     second = _fix.solve_fix(s, alm, at_us, deviation_offset)
     kept = []
     for entry in second["contacts"]:
@@ -72,8 +87,9 @@ def _relabel(s, alm, at_us, deviation_offset, result, _fix):
                 old[0], old[1], what, entry["residual_nm"])
             kept.append("contact %d relabelled %s %s -> %s" % (entry["index"], old[0], old[1], what))
     if not kept:
+        second = None
         for index, (image, limb) in changed.items():
             s.contacts[index].image, s.contacts[index].limb = image, limb
-        return result
+        return _fix.solve_fix(s, alm, at_us, deviation_offset)
     second["warnings"] = kept + second["warnings"]
     return second

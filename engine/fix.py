@@ -414,13 +414,17 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             raise FixError("the lines of position do not cross (azimuths too alike): no fix")
         return lat_e, lon_e, bias, L, At, pt, Ninv, its
 
-    def offset_estimable(use):
+    def offset_estimable(use, keep=True):
+        """Whether the offset is estimable with the lines ``use``; ``keep``: the factor stays
+        cached (not in the robust pass, which does not use it: its heap goes back meanwhile)."""
         if deviation_offset is False or len(use) < 4:
             return False
         if deviation_offset is True:
             return True
         evaluate(use, dr_lat, dr_lon, 0.0)
         _, _, N, _ = normal(use, factor(use), True)
+        if not keep:
+            chol_cache.clear()
         Ninv = invert(N)
         return Ninv is not None and Ninv[2][2] * N[2][2] <= MAX_OFFSET_VIF
 
@@ -432,7 +436,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     iterations = 0
     # robust first pass: Huber IRLS, dropping gross blunders (> PRESCREEN_K robust sigma) one at a time
     while len(use) > 3:
-        with_bias = offset_estimable(use)
+        with_bias = offset_estimable(use, False)
         lat_e, lon_e, bias, _, _, _, _, its = solve(use, lat_e, lon_e, bias if with_bias else 0.0, with_bias, True)
         iterations += its
         ratios = [abs(p_l[i]) / sigma_l[i] for i in use]
