@@ -5,9 +5,9 @@ then plans the next contact from it.
 Outside references: the reference session ``vectors/sessions/morning_run.json`` (contacts from
 DE421 + ERFA topocentric places, Bennett refraction, dip 1.76' sqrt(h); vectors/generate_sessions.py)
 times the first lower-limb contact of image i01 at 19:41:07.155 UTC on the true track; pushed the
-true track and the session's observer, the timer must announce that contact within 3 s (the
-engine's almanac and corrections hold a contact to a few tenths of an arcminute, and the Sun rises
-here at about 0.2'/s: 0.6' -> 3 s).  File bytes are checked with CRC-32 (ITU-T V.42 / IEEE 802.3,
+true track and the session's observer, the timer must announce that contact within 1 s (the Sun
+rises here at about 0.2'/s, so 1 s is 0.2' of altitude, a wide margin over the forward model's
+0.002' against the same DE421 + ERFA geometry, DEVELOPERS.md; measured: 3 ms).  File bytes are checked with CRC-32 (ITU-T V.42 / IEEE 802.3,
 ``binascii.crc32``) and the JSON read back by RFC 8259 rules (``json``).
 """
 import binascii
@@ -67,7 +67,7 @@ def test_push_a_sessions_track_with_its_observer():
     c = res["next_contact"]
     assert res["plan_problem"] is None and (c["image"], c["body"], c["limb"], c["direction"]) == \
         ("i01", "sun", "lower", "rising")
-    assert abs(c["t_us"] - REF_LOWER_I01) < 3000000, (c["utc"], c["t_us"] - REF_LOWER_I01)
+    assert abs(c["t_us"] - REF_LOWER_I01) < 1000000, (c["utc"], c["t_us"] - REF_LOWER_I01)
     st = client.status()
     assert st["display"][4] == "NEXT i01 SUN LL rise" and st["display"][5].startswith("in 0")
 
@@ -148,7 +148,7 @@ def test_cli_push_track_over_a_pseudo_terminal(tmp_path):
         vt.stop()
     held = vt.base_store.read("slot_track")
     assert held == track_file(doc["track"], doc["observer"]) and res["crc32"] == "%08x" % binascii.crc32(held)
-    assert res["next_contact"]["image"] == "i01" and abs(res["next_contact"]["t_us"] - REF_LOWER_I01) < 3000000
+    assert res["next_contact"]["image"] == "i01" and abs(res["next_contact"]["t_us"] - REF_LOWER_I01) < 1000000
     assert "sent track (%d bytes)" % len(held) in p.stdout
     assert "the timer now shows the next contact: i01 sun lower limb, rising, at 2030-10-20T19:41:0" in p.stdout
     from host.cautions import CAUTION_TEXT
