@@ -63,7 +63,14 @@ another image of the instrument (or the other limb) is reported as probably
 mislabelled.
 
 Memory: the covariance is never stored, only its Cholesky factor (n^2/2
-floats), so a board's heap holds a few dozen contacts.  Convergence: a step
+floats, rows as array('d')), so a board's heap holds a few dozen contacts.
+MicroPython ignores ``__slots__`` and boxes every float, so an object per
+contact with a dozen numbers costs about 900 bytes on its 64-bit port: the
+working data of the usable contacts ("lines", numbered in the session's
+order) are parallel array('d') columns instead, a set of lines is a list of
+indices, and the whitened vectors are array('d') (lists when the numbers are
+not plain floats, so tests/test_fix_float32.py's float32 emulation stays
+float32).  The working matrices go before the per-contact report is built.  Convergence: a step
 below 2 m, or below 0.001 sigma, or steps that stop shrinking below 0.03 sigma
 (the rounding floor in single precision; tests/test_fix_float32.py).
 
