@@ -410,3 +410,37 @@ def test_limbclock_push_sends_a_track_file_the_timer_reads_with_its_observer():
     st = c.status()
     assert st["plan_problem"] is None and st["onboard_fix_error"] is None
     assert st["onboard_fix"]["contacts_used"] + st["onboard_fix"]["rejected"] == 4
+
+
+def test_reduce_session_takes_a_parsed_session_as_the_timer_does():
+    # Onboard.reduce parses the text itself and drops it before the reduction: the same fix, within
+    # 0.3 nmi of the DE421 + ERFA truth of the reference session (contacts unlabelled: identified)
+    import engine
+    doc = load("sun_moon")
+    for c in doc["contacts"]:
+        c["image"] = None
+    text = json.dumps(doc)
+    ref = engine.reduce_session(text, ALM)
+    s = parse_session(text, ALM)
+    got = engine.reduce_session(s, ALM)
+    assert got == ref
+    assert [c.image for c in s.contacts] == got["images"]          # identified in place
+    assert distance_nm(got["lat_deg"], got["lon_deg"], doc["truth"]["lat_deg"], doc["truth"]["lon_deg"]) < 0.3
+
+
+def test_relabelling_not_kept_gives_back_the_first_fix():
+    # engine._relabel, when no relabelled contact is accepted, restores the labels and solves the first
+    # fix again (instead of holding it through the second solve): the same result as before the pass.
+    # Contact 3 of a reference session (DE421 + ERFA times) read as a wrong image is rejected again.
+    import engine
+    from engine import fix
+    doc = load("station_sun")
+    s = parse_session(json.dumps(doc), ALM)
+    first = fix.solve_fix(s, ALM)
+    c = s.contacts[3]
+    right = c.image
+    c.image = "i03" if right != "i03" else "i01"
+    got = engine._relabel(s, ALM, None, "auto", {3: (right, c.limb)}, fix)
+    assert s.contacts[3].image == right
+    assert got == first and got["contacts_used"] == len(doc["contacts"])
+    assert distance_nm(got["lat_deg"], got["lon_deg"], doc["truth"]["lat_deg"], doc["truth"]["lon_deg"]) < 0.3
