@@ -423,6 +423,26 @@ class Instrument:
         """``[(id, deviation_deg, sigma_arcmin or None)]``, the shape ``Session.images`` has."""
         return [(im.id, im.deviation_deg, im.sigma_arcmin) for im in self.images]
 
+    def session_instrument(self):
+        """The ``instrument`` object of a ``limbclock-session/1`` file: the images (id,
+        deviation, sigma when known, source when calibrated) and the calibrated reaction
+        delay with its sigma when the file holds one.  One mapping for every writer of
+        sessions (the archive, the timer)."""
+        images = []
+        for im in self.images:
+            d = {"id": im.id, "deviation_deg": im.deviation_deg}
+            if im.sigma_arcmin is not None:
+                d["sigma_arcmin"] = im.sigma_arcmin
+            if im.source == "calibrated":
+                d["source"] = im.source
+            images.append(d)
+        out = {"images": images}
+        if self.reaction_delay_s is not None:
+            out["reaction_delay_s"] = self.reaction_delay_s
+            if self.reaction_delay_sigma_s is not None:
+                out["reaction_delay_sigma_s"] = self.reaction_delay_sigma_s
+        return out
+
     def coef_of(self, image_id):
         for im in self.images:
             if im.id == image_id:

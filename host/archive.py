@@ -533,19 +533,15 @@ def session_document(conn, session_id):
         raise ArchiveError("session %d: %s not attached yet (use `limbclock session --session %d "
                            "--eye-height ... --track ... --instrument FILE`)"
                            % (session_id, ", ".join(m.replace("_id", "") for m in missing), session_id))
-    inst = get_instrument(conn, s["instrument_id"])
+    from engine.instrument import parse_instrument
+    inst = parse_instrument(get_instrument(conn, s["instrument_id"]))
     rows = session_contacts(conn, s, include_voided=True)
-    doc = {"format": "limbclock-session/1",
-           "observer": json.loads(s["observer"]),
-           "instrument": {"images": [{"id": im["id"], "deviation_deg": im["deviation_deg"]}
-                                     for im in inst["images"]]},
-           "track": json.loads(s["track"]),
-           "contacts": [_session_contact(c) for c in rows],
-           "archive": {"session_id": session_id, "device": s["device_id"], "session_no": s["session_no"]}}
-    for im_doc, im in zip(doc["instrument"]["images"], inst["images"]):
-        if im.get("sigma_arcmin") is not None:
-            im_doc["sigma_arcmin"] = im["sigma_arcmin"]
-    return doc
+    return {"format": "limbclock-session/1",
+            "observer": json.loads(s["observer"]),
+            "instrument": inst.session_instrument(),
+            "track": json.loads(s["track"]),
+            "contacts": [_session_contact(c) for c in rows],
+            "archive": {"session_id": session_id, "device": s["device_id"], "session_no": s["session_no"]}}
 
 
 def _session_contact(c):

@@ -111,6 +111,8 @@ def run(args):
     if args.json:
         print(json.dumps(summary))
     else:
-        print("virtual timer stopped: last record #%s, confirmed #%s, %d power cut(s)"
-              % (summary["last_seq"], summary["confirmed_seq"], vt.power_cuts))
+        def seq(v):
+            return "none" if v is None else "#%s" % v
+        print("virtual timer stopped: last record %s, confirmed %s, %d power cut(s)"
+              % (seq(summary["last_seq"]), seq(summary["confirmed_seq"]), vt.power_cuts))
     return 0

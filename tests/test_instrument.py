@@ -347,3 +347,17 @@ def test_ladder_under_micropython():
         assert abs(g[1] - im.deviation_deg) * 60 < 1e-6 and g[2] == im.paths and g[4] == im.faint
         assert abs(g[3] / im.fraction - 1) < 1e-9
     assert abs(float(out[-1]) - ins.yaw_loss_arcmin(30.0, 2.0)) < 1e-9
+
+
+def test_session_instrument_carries_the_calibration():
+    # what the archive and the timer write into a session: images with sigma/source, and the reaction delay
+    from engine.instrument import parse_instrument
+    doc = {"format": "limbclock-instrument/1", "name": "t", "plate_angles_deg": None,
+           "images": [{"id": "a", "deviation_deg": 5.7, "sigma_arcmin": 0.3, "source": "calibrated",
+                       "calibrated_utc": "2031-05-01T12:00:00Z"},
+                      {"id": "b", "deviation_deg": 8.8, "sigma_arcmin": None, "source": "nominal"}],
+           "reaction_delay_s": 0.21, "reaction_delay_sigma_s": 0.03}
+    si = parse_instrument(doc).session_instrument()
+    assert si == {"images": [{"id": "a", "deviation_deg": 5.7, "sigma_arcmin": 0.3, "source": "calibrated"},
+                             {"id": "b", "deviation_deg": 8.8}],
+                  "reaction_delay_s": 0.21, "reaction_delay_sigma_s": 0.03}
