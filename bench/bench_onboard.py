@@ -14,7 +14,7 @@ times from DE421 + ERFA), also all 42, and the labelled variant (no identificati
    it does in the 32-bit WebAssembly port), except that a microsecond instant is a small int here and a
    heap-allocated long on a 32-bit board (a few dozen bytes per live instant), and the unboxed
    numbers (``array('d')`` in the fix and identification, a few KB live) take 8 bytes on both.
-   The WebAssembly port is shown growing its heap instead (``tests/mp/run_heap.mjs`` starts it small).
+   The WebAssembly port is shown growing its heap instead (``tests/mp/run.mjs`` with LIMBCLOCK_MP_HEAP starts it small).
 2. Time: CPython, the WebAssembly port under node (``tests/mpy.py``), and an estimate for a
    100-200 MHz board from a pure-Python float loop timed in the WebAssembly port against an
    assumed board rate (see ``BOARD_LOOP_PER_S``).
@@ -55,8 +55,9 @@ def _wasm_heap_growth(mpy):
         f.write("import micropython\nx = [bytearray(50) for i in range(4000)]\nmicropython.mem_info()\n")
         script = f.name
     try:
-        out = subprocess.run(["node", os.path.join(TESTS, "mp", "run_heap.mjs"), "65536", ROOT, script],
-                             cwd=os.path.join(TESTS, "mp"), capture_output=True, text=True, timeout=60).stdout
+        out = subprocess.run(["node", os.path.join(TESTS, "mp", "run.mjs"), ROOT, script],
+                             cwd=os.path.join(TESTS, "mp"), capture_output=True, text=True, timeout=60,
+                             env=dict(os.environ, LIMBCLOCK_MP_HEAP="65536")).stdout
     finally:
         os.unlink(script)
     for line in out.splitlines():
@@ -91,7 +92,7 @@ def run():
 
     grown = _wasm_heap_growth(mpy)
     if grown is not None:
-        print("   why not the WebAssembly port: started with a 64 KB heap (tests/mp/run_heap.mjs), holding 200 KB"
+        print("   why not the WebAssembly port: started with a 64 KB heap (LIMBCLOCK_MP_HEAP), holding 200 KB"
               " live it grew to %d KB instead of failing" % (grown // 1024))
 
     print("2. time of one on-board reduction of 30 contacts")

@@ -2,14 +2,17 @@
 // usage: node run.mjs REPO_ROOT SCRIPT_FILE [PACKAGE ...]
 // Each PACKAGE directory of the repository (e.g. engine, device) is copied into
 // the port's file system under /lib and put on sys.path; then SCRIPT_FILE runs.
+// LIMBCLOCK_MP_HEAP=BYTES starts the port with that heap (its default is 1 MiB;
+// note that this port grows its heap on demand rather than failing).
 // Exit status 0 on success, 1 when the script raised.
 import { loadMicroPython } from "@micropython/micropython-webassembly-pyscript";
 import fs from "node:fs";
 import path from "node:path";
 
 const [root, script, ...packages] = process.argv.slice(2);
-const out = [];
+const heap = process.env.LIMBCLOCK_MP_HEAP;
 const mp = await loadMicroPython({
+  ...(heap ? { heapsize: parseInt(heap, 10) } : {}),
   stdout: (line) => process.stdout.write(line + "\n"),
   stderr: (line) => process.stderr.write(line + "\n"),
 });
