@@ -163,7 +163,7 @@ def iter_records(log, chunk=16):
 class Onboard:
     """The timer's planner and reducer (see the module docstring).  ``store`` is the firmware's
     file store; ``data_dir`` the shipped almanac directory (default ``engine/data``)."""
-    __slots__ = ("store", "data_dir", "alm", "images", "inst_extra", "track", "observer", "problem",
+    __slots__ = ("store", "data_dir", "alm", "images", "inst_session", "track", "observer", "problem",
                  "next", "plan_key", "plan_due", "fix", "fix_error", "loaded")
 
     def __init__(self, store, data_dir=None):
@@ -172,7 +172,7 @@ class Onboard:
         self.loaded = False
         self.alm = None
         self.images = None          # [(id, deviation_deg, sigma_arcmin or None)]
-        self.inst_extra = None      # instrument keys a session carries (reaction delay, image sources)
+        self.inst_session = None    # the session's "instrument" object (Instrument.session_instrument)
         self.track = None
         self.observer = None
         self.problem = None         # why there is no plan (short text)
@@ -193,7 +193,7 @@ class Onboard:
         if self.loaded:
             return
         self.loaded = True
-        self.alm = self.images = self.track = self.observer = self.inst_extra = None
+        self.alm = self.images = self.track = self.observer = self.inst_session = None
         problems = []
         try:
             self.alm = load_almanac(self.store, "slot_almanac", self.data_dir)
@@ -207,17 +207,7 @@ class Onboard:
                 from engine.instrument import parse_instrument
                 inst = parse_instrument(raw)
                 self.images = inst.image_tuples()
-                extra = {}
-                if inst.reaction_delay_s is not None:
-                    extra["reaction_delay_s"] = inst.reaction_delay_s
-                    if inst.reaction_delay_sigma_s is not None:
-                        extra["reaction_delay_sigma_s"] = inst.reaction_delay_sigma_s
-                sources = {}
-                for im in inst.images:
-                    if im.source == "calibrated":
-                        sources[im.id] = im.source
-                extra["sources"] = sources
-                self.inst_extra = extra
+                self.inst_session = inst.session_instrument()
             except ValueError as e:
                 problems.append("instrument: %s" % e)
         raw = self.store.read("slot_track")
@@ -328,20 +318,7 @@ class Onboard:
                          % (format_utc(r.utc_us, 6), BODY_NAMES[r.body], LIMB_NAMES[r.limb], repr(sig)))
         if len(parts) < MIN_CONTACTS:
             raise OnboardError("%d contact(s): need %d" % (len(parts), MIN_CONTACTS))
-        ex = self.inst_extra or {}
-        images = []
-        sources = ex.get("sources", {})
-        for iid, dev, sig in self.images:
-            im = {"id": iid, "deviation_deg": dev}
-            if sig is not None:
-                im["sigma_arcmin"] = sig
-            if iid in sources:
-                im["source"] = sources[iid]
-            images.append(im)
-        inst = {"images": images}
-        for k in ("reaction_delay_s", "reaction_delay_sigma_s"):
-            if k in ex:
-                inst[k] = ex[k]
+        inst = self.inst_session
         head = '{"format":"limbclock-session/1","observer":%s,"instrument":%s,"track":%s,"contacts":[' % (
             json.dumps(self.observer), json.dumps(inst), json.dumps(self.track))
         return head + ",".join(parts) + "]}"
