@@ -76,7 +76,9 @@ below 2 m, or below 0.001 sigma, or steps that stop shrinking below 0.03 sigma
 
 The deviation offset is estimated ("auto") when its variance inflation
 (N^-1)_bb N_bb is at most ``MAX_OFFSET_VIF`` and there are at least four
-contacts; otherwise it is held at zero (a warning says so).  In practice it
+contacts, and kept when it is significant: |b| >= 2 s0 sqrt((N^-1)_bb) (a t test
+of the extra unknown); otherwise it is held at zero (a warning says so), the
+common terms of the error model (dip anomaly) carrying it.  In practice it
 needs contacts on both sides of the meridian (rising and setting).
 """
 import math
@@ -94,6 +96,7 @@ FORMAT = "limbclock-fix/1"
 CHI2_2_95 = 5.991464547107979      # chi-square, 2 degrees of freedom, P = 0.95: -2 ln 0.05
 REJECT_W = 3.0                     # |w| above which the worst contact is dropped (common practice)
 MAX_OFFSET_VIF = 10.0              # largest variance inflation of the offset that is still "estimable"
+OFFSET_T = 2.0                     # an estimated offset below 2 of its a-posteriori sigmas is not significant
 MAX_STEP_NM = 60.0
 MAX_ITERATIONS = 40
 MAX_LAT_DEG = 89.0
@@ -428,6 +431,8 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             return False
         if deviation_offset is True:
             return True
+        if held[0] is not None:
+            return False
         evaluate(use, dr_lat, dr_lon, 0.0)
         _, _, N, _ = normal(use, factor(use), True)
         if not keep:
@@ -435,6 +440,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         Ninv = invert(N)
         return Ninv is not None and Ninv[2][2] * N[2][2] <= MAX_OFFSET_VIF
 
+    held = [None]                               # why an estimable offset was held at zero (auto mode)
     use = list(range(n_lines))                  # the lines in use (indices)
     if len(use) < 2:
         raise FixError("%d usable contact(s): a fix needs at least two lines of position" % len(use))
@@ -464,6 +470,15 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         n, u = len(use), len(Ninv)
         dof = n - u
         s0 = math.sqrt(_dot(pt, pt) / dof) if dof > 0 else 0.0      # e' S^-1 e = |L^-1 e|^2
+        if u == 3 and deviation_offset == "auto" and dof >= 1:
+            # t test of the extra unknown: an offset the data do not show is held at zero (the common
+            # terms of the error model carry it), so noise in b does not move the fix
+            sb = s0 * math.sqrt(Ninv[2][2])
+            if sb > 0.0 and abs(bias) < OFFSET_T * sb:
+                held[0] = ("deviation offset %+.1f' +- %.1f' is not significant (below %.0f sigma): held at 0"
+                           % (bias, sb, OFFSET_T))
+                bias = 0.0
+                continue
         if dof < 1:
             break
         g = _backward(L, pt)                                      # S^-1 e
@@ -492,7 +507,9 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     if dof < 1:
         warnings.append("no redundancy (%d contacts for %d unknowns): the ellipse rests on the a-priori "
                         "error model alone and blunders cannot be detected" % (len(use), u))
-    if deviation_offset == "auto" and u == 2 and n_lines >= 4:
+    if held[0] is not None and u == 2:
+        warnings.append(held[0])
+    elif deviation_offset == "auto" and u == 2 and n_lines >= 4:
         warnings.append("deviation offset not estimable from these azimuths: held at 0 "
                         "(contacts on both sides of the meridian make it estimable)")
     spread = _azimuth_spread([zn_l[i] for i in use])
