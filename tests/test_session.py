@@ -138,14 +138,7 @@ ALL_PATHS = [p for p in _paths(EXAMPLE) if p]
 @settings(max_examples=300, deadline=None)
 @given(st.sampled_from(ALL_PATHS), json_values, st.booleans())
 def test_fuzz_only_session_errors(path, value, delete):
-    d = copy.deepcopy(EXAMPLE)
-    obj = d
-    for k in path[:-1]:
-        obj = obj[k]
-    if delete:
-        del obj[path[-1]]
-    else:
-        obj[path[-1]] = value
+    d = _mut(path, value, delete)
     try:
         text = json.dumps(d)
     except ValueError:
