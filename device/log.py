@@ -2,7 +2,8 @@
 
 File ``log.bin`` in the store::
 
-    header  16 bytes  b"LCLG" | version u8 (1) | 3 bytes zero | base_seq u32 | crc32 u32 of bytes 0..11
+    header  24 bytes  b"LCLG" | version u8 (2) | 3 bytes zero | base_seq u32 | log_id u32 |
+                      origin_seq u32 | crc32 u32 of bytes 0..19
     record  33 bytes  0xA5 | length u8 (27) | payload (27 bytes) | crc32 u32 of the 29 bytes before it
 
     payload, little-endian ("<IBqBIBBHbI"):
@@ -24,6 +25,15 @@ renamed over the log (``FileStore.replace``), so a cut leaves either the old
 or the new log, never a mix.  ``base_seq - 1`` is the confirmed sequence number,
 and it survives an empty log.
 
+Identity.  A log gets a random 32-bit ``log_id`` and its ``origin_seq`` (the
+first sequence number it ever issued) when it is created; both stay in the
+header through every compaction.  The host keys what it archives on
+(device, log_id, seq), so a log created again (reflash, new file) can reuse
+sequence numbers without being mistaken for the old one.  A version-1 header
+(no identity) is upgraded on open with a new identity whose ``origin_seq`` is
+its ``base_seq``.  ``range_crc(from_seq, last_seq)`` streams the CRC-32 of the
+packed records in that range: the proof an acknowledgement carries.
+
 A void is a new record (kind VOID) whose ``ref_seq`` names the voided contact;
 nothing is erased.  Records readable by the host are the same bytes as on
 flash (the CRC travels end to end).
@@ -32,8 +42,9 @@ import binascii
 import struct
 
 MAGIC = b"LCLG"
-VERSION = 1
-HEADER_LEN = 16
+VERSION = 2
+HEADER_LEN = 24
+V1_HEADER_LEN = 16
 REC_MAGIC = 0xA5
 PAYLOAD_FMT = "<IBqBIBBHbI"
 PAYLOAD_LEN = 27
@@ -126,9 +137,21 @@ def unpack_records(data):
     return out
 
 
-def pack_header(base_seq):
-    head = MAGIC + bytes((VERSION, 0, 0, 0)) + struct.pack("<I", base_seq)
+def pack_header(base_seq, log_id=0, origin_seq=1):
+    head = MAGIC + bytes((VERSION, 0, 0, 0)) + struct.pack("<III", base_seq, log_id, origin_seq)
     return head + struct.pack("<I", binascii.crc32(head) & 0xFFFFFFFF)
+
+
+def new_log_id():
+    """A random nonzero u32 for a new log (``os.urandom`` where the port has it, else the ticks)."""
+    try:
+        import os
+        v = struct.unpack("<I", os.urandom(4))[0]
+    except (ImportError, AttributeError, NotImplementedError, OSError):
+        import time
+        t = getattr(time, "ticks_us", None)
+        v = (t() if t is not None else int(time.time() * 1000000)) & 0xFFFFFFFF
+    return v or 1
 
 
 class Log:
@@ -136,29 +159,35 @@ class Log:
 
     ``base_seq`` first sequence number the file may hold (``confirmed = base_seq - 1``),
     ``next_seq`` the number the next record gets, ``recovered_bytes`` torn bytes dropped at open."""
-    __slots__ = ("store", "name", "capacity", "base_seq", "next_seq", "size", "recovered_bytes")
+    __slots__ = ("store", "name", "capacity", "base_seq", "next_seq", "size", "recovered_bytes", "log_id",
+                 "origin_seq", "id_source")
 
-    def __init__(self, store, name="log.bin", capacity=65536):
+    def __init__(self, store, name="log.bin", capacity=65536, id_source=new_log_id):
         if capacity < HEADER_LEN + RECORD_LEN:
             raise LogError("log capacity %d is too small" % capacity)
         self.store = store
         self.name = name
         self.capacity = capacity
         self.recovered_bytes = 0
+        self.id_source = id_source
         self.open()
 
     def open(self):
         """Recover after a power cut: finish an interrupted compaction, drop a torn tail."""
         st = self.store
         st.recover(self.name)
-        if st.size(self.name) < HEADER_LEN:
+        if st.size(self.name) < V1_HEADER_LEN:
             # never created, or creation cut before the rename: nothing was ever acknowledged
-            st.replace(self.name, pack_header(1))
+            st.replace(self.name, pack_header(1, self.id_source(), 1))
         head = st.read(self.name, 0, HEADER_LEN)
-        if head[:4] != MAGIC or head[4] != VERSION or \
-                binascii.crc32(head[:12]) & 0xFFFFFFFF != struct.unpack("<I", head[12:16])[0]:
+        if head[:4] == MAGIC and head[4] == 1 and \
+                binascii.crc32(head[:12]) & 0xFFFFFFFF == struct.unpack("<I", head[12:16])[0]:
+            self._upgrade_v1(struct.unpack("<I", head[8:12])[0])
+            head = st.read(self.name, 0, HEADER_LEN)
+        if len(head) < HEADER_LEN or head[:4] != MAGIC or head[4] != VERSION or \
+                binascii.crc32(head[:20]) & 0xFFFFFFFF != struct.unpack("<I", head[20:24])[0]:
             raise LogError("log header damaged (%s in the store): keep the file and contact support" % self.name)
-        self.base_seq = struct.unpack("<I", head[8:12])[0]
+        self.base_seq, self.log_id, self.origin_seq = struct.unpack("<III", head[8:20])
         seq = self.base_seq
         off = HEADER_LEN
         total = st.size(self.name)
@@ -181,6 +210,32 @@ class Log:
             st.truncate(self.name, off)
         self.next_seq = seq
         self.size = off
+
+    def _upgrade_v1(self, base_seq):
+        """A version-1 log (16-byte header, no identity): the same records under a v2 header with a
+        new identity whose ``origin_seq`` is ``base_seq``."""
+        st = self.store
+        total = st.size(self.name)
+        chunks = [pack_header(base_seq, self.id_source(), base_seq)]
+        off = V1_HEADER_LEN
+        while off < total:
+            n = min(1024, total - off)
+            chunks.append(st.read(self.name, off, n))
+            off += n
+        st.replace(self.name, chunks)
+
+    def range_crc(self, from_seq, last_seq):
+        """CRC-32 of the packed records ``from_seq`` .. ``last_seq`` (all held), streamed; None when
+        part of the range is not held."""
+        if from_seq < self.base_seq or last_seq >= self.next_seq or last_seq < from_seq:
+            return None
+        crc = 0
+        s = from_seq
+        while s <= last_seq:
+            n = min(32, last_seq + 1 - s)
+            crc = binascii.crc32(self.read_raw(s, n), crc)
+            s += n
+        return crc & 0xFFFFFFFF
 
     @property
     def confirmed_seq(self):
@@ -236,7 +291,7 @@ class Log:
             raise LogError("acknowledged seq %d is beyond the last record %d" % (seq, self.next_seq - 1))
         keep_from = HEADER_LEN + (seq + 1 - self.base_seq) * RECORD_LEN
         st = self.store
-        chunks = [pack_header(seq + 1)]
+        chunks = [pack_header(seq + 1, self.log_id, self.origin_seq)]
         off = keep_from
         while off < self.size:
             n = min(1024, self.size - off)

@@ -99,7 +99,7 @@ def test_cut_between_remove_and_rename_on_a_fat_like_store(tmp_path):
     log = L.Log(st_)
     kept = [log.append(L.CONTACT, 10 + i, 1, 30, 0, 0, 1) for i in range(3)]
     # what FileStore.rename does on a store that cannot rename over a file, cut after the remove:
-    st_.replace("log.bin.new", L.pack_header(3) + kept[2].pack())
+    st_.replace("log.bin.new", L.pack_header(3, log.log_id, log.origin_seq) + kept[2].pack())
     os.rename(st_.path("log.bin.new"), st_.path("log.bin.tmp"))
     os.remove(st_.path("log.bin"))
     again = L.Log(st_)
@@ -176,3 +176,24 @@ def test_power_cut_on_the_timer_loses_only_unacknowledged(tmp_path):
     assert [r.seq for r in recs] == list(range(1, len(recs) + 1))
     assert len(recs) >= 4 and abs(recs[0].utc_us - t) <= 1000 and abs(recs[1].utc_us - contacts[1][0]) <= 1000
     assert len(beeps) == len(recs) - 2        # the new hardware object only saw the beeps after restart
+
+
+def test_log_identity_survives_compaction_and_reopen():
+    st_ = MemStore()
+    log = L.Log(st_, id_source=lambda: 0x5EED1234)
+    kept = [log.append(L.CONTACT, 10 + i, 1, 30, 0, 0, 1) for i in range(4)]
+    assert (log.log_id, log.origin_seq) == (0x5EED1234, 1)
+    log.ack(2)
+    again = L.Log(st_, id_source=lambda: 1)          # an existing log keeps its identity
+    assert (again.log_id, again.origin_seq, again.base_seq) == (0x5EED1234, 1, 3)
+    assert again.range_crc(3, 4) == binascii.crc32(kept[2].pack() + kept[3].pack())
+    assert again.range_crc(2, 4) is None and again.range_crc(3, 5) is None
+
+
+def test_version_1_log_is_upgraded_with_a_new_identity():
+    st_ = MemStore()
+    recs = [L.Record(7 + i, L.CONTACT, 1000 * i, 1, 30, 0, 0, 1) for i in range(3)]
+    head = L.MAGIC + bytes((1, 0, 0, 0)) + struct.pack("<I", 7)
+    st_.replace("log.bin", head + struct.pack("<I", binascii.crc32(head)) + b"".join(r.pack() for r in recs))
+    log = L.Log(st_, id_source=lambda: 42)
+    assert log.records() == recs and (log.log_id, log.origin_seq, log.base_seq, log.next_seq) == (42, 7, 7, 10)
