@@ -22,6 +22,7 @@ toward the body).
 ``alm`` is any object with ``position(body, t_us, dut1_us=0)`` returning an
 object with ``gha_deg, dec_deg, sd_arcmin, hp_arcmin`` (``engine.almanac``).
 """
+from engine import coop
 from engine.angles import norm180
 from engine.constants import US_PER_S
 from engine.corrections import (dip_arcmin, refraction_arcmin, refraction_true_arcmin, limb_sign,
@@ -155,6 +156,7 @@ def sextant_altitude_deg(alm, body, limb, t_us, lat_deg, lon_deg, observer, dut1
     """(Hs deg, dHs/dt deg/s): the sextant altitude of the ``limb`` that would be
     seen at ``t_us`` from a position (the inverse of the corrections).  A contact
     of an image with deviation D happens where Hs == D."""
+    coop.tick()                     # every evaluation of the model is a safe point (engine/coop.py)
     pos = alm.position(body, t_us, dut1_us)
     h, zn, lha = _hc_zn(pos, lat_deg, lon_deg)
     hs = _hs_from_ho(pos, limb, h, observer, lat_deg, zn)
@@ -168,6 +170,7 @@ def sextant_altitude_deg(alm, body, limb, t_us, lat_deg, lon_deg, observer, dut1
 
 def contact_terms(alm, body, limb, deviation_deg, t_us, lat_deg, lon_deg, observer, dut1_us=0):
     """(Ho deg, Hc deg, Zn deg) of a contact seen from a position (one almanac call)."""
+    coop.tick()
     pos = alm.position(body, t_us, dut1_us)
     h, zn, _ = _hc_zn(pos, lat_deg, lon_deg)
     return _ho_from_hs(pos, limb, deviation_deg, observer, lat_deg, zn), h, zn
