@@ -38,8 +38,11 @@ class SessionError(ValueError):
 
 
 class Contact:
-    """One timed contact: instant, body, limb, image id (or None) and its index in the file."""
-    __slots__ = ("t_us", "body", "limb", "image", "index", "sigma_s", "void", "extra")
+    """One timed contact: instant, body, limb, image id (or None) and its index in the file.
+
+    ``dup_of``: None, or the index of an earlier contact this one repeats (same body, limb and
+    image within ``DUPLICATE_S``): it is reported and not used a second time."""
+    __slots__ = ("t_us", "body", "limb", "image", "index", "sigma_s", "void", "extra", "dup_of")
 
     def __init__(self, t_us, body, limb, image=None, index=0, sigma_s=0.0, void=False, extra=None):
         self.t_us = int(t_us)
@@ -50,6 +53,7 @@ class Contact:
         self.sigma_s = float(sigma_s)
         self.void = bool(void)
         self.extra = extra if extra is not None else {}
+        self.dup_of = None
 
     def to_dict(self):
         d = {"utc": format_utc(self.t_us, 6), "body": self.body, "limb": self.limb, "image": self.image}
