@@ -186,15 +186,12 @@ def tai_minus_utc_s(t_us):
     Raises TimeError before 1972.  After ``LEAP_TABLE_VALID_UNTIL`` the last
     value is kept (see the module docstring)."""
     day = t_us // US_PER_DAY
-    if day < LEAP_SECONDS[0][0]:
-        raise TimeError("instants before 1972 are outside the leap-second table")
-    value = LEAP_SECONDS[0][1]
-    for first_day, v in LEAP_SECONDS:
-        if day >= first_day:
-            value = v
-        else:
-            break
-    return value
+    i = len(LEAP_SECONDS) - 1           # from the latest entry back: today's instants stop at once
+    while i >= 0:
+        if day >= LEAP_SECONDS[i][0]:
+            return LEAP_SECONDS[i][1]
+        i -= 1
+    raise TimeError("instants before 1972 are outside the leap-second table")
 
 
 def leap_table_extrapolated(t_us):

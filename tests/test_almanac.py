@@ -164,6 +164,63 @@ def test_series_continuous_at_segment_joins():
             assert abs(before[2] - after[2]) < 0.002
 
 
+def test_power_form_is_exact_and_as_accurate_as_the_chebyshev_sum():
+    # Every segment of every shipped year: the engine turns the stored integer Chebyshev
+    # coefficients into integer power-basis coefficients (exact) and sums them by Horner's rule.
+    # Checked against numpy's own Chebyshev routines (cheb2poly, chebval, chebder: an outside
+    # implementation): the integers agree exactly, and value and derivative to 1e-12 (deg or
+    # arcmin, per unit of x) at x = -1, -0.37, 0, 0.61, 1.  The conditioning claim of the
+    # docstring: sum |A_j| <= 2 sum |n_k|, so Horner's rounding (single precision on a board)
+    # stays that of the Chebyshev sum.
+    from numpy.polynomial import chebyshev as C
+    xs = np.array([-1.0, -0.37, 0.0, 0.61, 1.0])
+    worst = worst_ratio = 0.0
+    n_segments = expected_segments = 0
+    for y in ALM.years:
+        a = ALM.year(y)
+        for body in almanac.BODIES:
+            s = a._series(body)
+            expected_segments += s.nseg
+            for i in range(s.nseg):
+                n_segments += 1
+                decoded = a._decode(s, i)
+                for ints, q, power in zip(a._chebyshev(s, i, False), s.quantities, decoded):
+                    exact = almanac._power_form(ints)
+                    assert all(type(v) is int for v in exact)
+                    ref = np.zeros(len(ints))       # numpy in doubles: exact below 2**53
+                    p = C.cheb2poly(np.array(ints, dtype=float))
+                    ref[:len(p)] = p
+                    assert [float(v) for v in exact[::-1]] == list(ref)
+                    worst_ratio = max(worst_ratio, sum(abs(v) for v in exact) / sum(abs(v) for v in ints))
+                    c = np.array(ints, dtype=float) * float(q.quantum)
+                    for x, v_ref, d_ref in zip(xs, C.chebval(xs, c), C.chebval(xs, C.chebder(c))):
+                        v, d = almanac._horner(power, float(x), True)
+                        worst = max(worst, abs(v - v_ref), abs(d - d_ref))
+    assert n_segments == expected_segments > 26 * (11 + 45)
+    assert worst < 1e-12, worst
+    assert worst_ratio <= 2.0, worst_ratio
+
+
+def test_decoded_and_packed_forms_give_identical_numbers():
+    # The host's decoded form (every segment kept) and the board's packed form (last segment only,
+    # 2 years kept) run the same arithmetic on the same numbers: equal to the last bit.
+    host = almanac.load()
+    board = almanac.load(decoded=False)
+    assert host.decoded and host.keep_years == len(host.years)
+    assert not board.decoded and board.keep_years == 2
+    _, rows = generate_almanac.load()
+    for utc, body, *_ in rows[::7]:
+        t = ts.parse_utc(utc)
+        p, q = host.position(body, t), board.position(body, t)
+        assert (p.gha_deg, p.dec_deg, p.sd_arcmin, p.hp_arcmin, p.gha_rate_deg_per_s, p.dec_rate_deg_per_s) == \
+               (q.gha_deg, q.dec_deg, q.sd_arcmin, q.hp_arcmin, q.gha_rate_deg_per_s, q.dec_rate_deg_per_s)
+    assert len(board._cache) == 2 and len(host._cache) > 2
+    # the decoded form keeps what it decoded, and a year is the same object on every use
+    a = host.year(2031)
+    assert a is host.year(2031) and a.is_decoded
+    assert sum(1 for c in a._series("moon").decoded if c is not None) > 0
+
+
 def test_year_boundaries_and_span():
     first, end = ALM.span_us()
     assert first == ts.parse_utc("2025-01-01T00:00:00Z") and end == ts.parse_utc("2051-01-01T00:00:00Z")
