@@ -25,7 +25,8 @@ def _wrap_arcmin(a_deg, b_deg):
     return abs((a_deg - b_deg + 180.0) % 360.0 - 180.0) * 60.0
 
 
-# Accuracy targets of the almanac (limbclock design): Sun GHA/dec 0.005', Moon 0.01', SD/HP 0.005'.
+# Accuracy targets of the almanac (the project's requirement, not a published value):
+# Sun GHA/dec 0.005', Moon 0.01', SD/HP 0.005'.
 TARGET = {"sun": (0.005, 0.005, 0.005), "moon": (0.01, 0.01, 0.005)}
 
 
@@ -119,7 +120,7 @@ def test_sun_semi_diameter_at_perihelion_and_aphelion():
 
 
 def test_moon_horizontal_parallax_range():
-    # Moon HP lies within 53.9'..61.5' to the printed 0.1' (limbclock REFERENCES 7): the extreme
+    # Moon HP lies within 53.9'..61.5' to the printed 0.1' (derived from the distances below): the extreme
     # lunar distances of the 21st century are 356 375 km and 406 720 km (Meeus, Astronomical
     # Algorithms ch. 50 [from memory]), i.e. HP = asin(6378.137/d) = 61.53' and 53.91'.
     # A dense sample over 2025-2050 must come close to both.
@@ -147,7 +148,9 @@ def test_rates_match_finite_differences():
         # 0.01'/h tolerance, common practice for hourly differences in almanacs
         assert abs(p.gha_rate_deg_per_s - gha_rate) * 3600 * 60 < 0.01
         assert abs(p.dec_rate_deg_per_s - dec_rate) * 3600 * 60 < 0.01
-    # Sun's GHA rate is close to 15 deg/h; the Moon's close to 14.5 deg/h (REFERENCES 2) [from memory]
+    # Sun's GHA rate is close to 15 deg/h; the Moon's close to 14.5 deg/h (its mean: 360 deg per lunar day
+    # of 24 h 50 min = 14.49 deg/h; common practice, the Nautical Almanac's v correction is the excess
+    # over 14 deg 19.0' per hour [from memory])
     assert abs(ALM.position("sun", t).gha_rate_deg_per_s * 3600 - 15.0) < 0.01
     assert 14.0 < ALM.position("moon", t).gha_rate_deg_per_s * 3600 < 14.8
 
