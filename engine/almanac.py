@@ -8,7 +8,8 @@ rates of GHA and declination.  Pure Python, standard library only, and safe
 under MicroPython on a board with single-precision floats.
 
 What is stored.  For each body, consecutive segments of fixed length in TT,
-each holding Chebyshev series (Clenshaw 1955; *Numerical Recipes* 5.8) of
+each holding Chebyshev series (Rivlin, *The Chebyshev Polynomials*, 1974;
+Press et al., *Numerical Recipes* 3rd ed. 2007, 5.8) of
 
 * q0: right ascension measured from the CIO (deg), unwrapped in the segment;
 * q1: declination (deg);
@@ -43,11 +44,19 @@ File format ``.lca`` version 1 (little-endian; all offsets in bytes)::
 
 Every segment of a body has the same number of bits, so segment i starts at
 bit i x (sum of all widths) of the body's data: evaluation decodes one segment
-only, and keeps the last decoded segment of each body.
+only.
+
+Evaluation.  Decoding a segment turns its integer Chebyshev coefficients into
+integer coefficients of the power basis in x (exact, ``_power_form``), then
+floats; ``_horner`` sums them with their derivative.  On a board (MicroPython:
+the packed form) the file's bytes stay the only store and the last decoded
+segment of each body is kept; on a host (CPython: the decoded form) every
+segment is kept once decoded, so an instant anywhere decodes nothing once its
+segment has been used (``load(decoded=...)``; both forms give identical numbers).
 
 Single precision.  Time enters as an integer offset within the segment, so
-x in [-1, 1] keeps its precision; the coefficients are small integers; ERA is
-built from integers by ``timescale.era_deg``.  The arithmetic goes through the
+x in [-1, 1] keeps its precision; the coefficients are integers, rounded once
+each to a float; ERA is built from integers by ``timescale.era_deg``.  The arithmetic goes through the
 module-level names ``math`` and ``_float`` so a test can run it rounded to
 single precision (``tests/test_almanac_float32.py``).
 """
@@ -124,26 +133,76 @@ def _signed_bits(buf, pos, w):
     return v
 
 
-def _clenshaw(c, x, with_rate):
-    """(f, df/dx) of sum c_k T_k(x) by Clenshaw's recurrence and its derivative
-    (df/dx is 0 unless ``with_rate``):
+_T_ROWS = []        # row k: the integer coefficients of T_k(x) for x^(k&1), x^(k&1 + 2), ..., x^k
 
-    b_k = c_k + 2x b_{k+1} - b_{k+2}; f = c_0 + x b_1 - b_2
-    d_k = 2 b_{k+1} + 2x d_{k+1} - d_{k+2}; f' = b_1 + x d_1 - d_2
-    (Clenshaw 1955; *Numerical Recipes* 3rd ed. 5.8, 5.9)."""
-    x2 = x + x
-    b1 = b2 = d1 = d2 = _float(0.0)
-    k = len(c) - 1
+
+def _t_rows(n):
+    """The rows of ``_T_ROWS`` up to T_(n-1), built once (T_0 = 1, T_1 = x,
+    T_{k+1} = 2x T_k - T_{k-1}; Rivlin, *The Chebyshev Polynomials*, 1974, ch. 1).
+    Only the powers of the parity of k are nonzero; the integers are exact
+    (|coefficient| < 2**20 for k <= 16)."""
+    rows = _T_ROWS
+    while len(rows) < n:
+        k = len(rows)
+        if k < 2:
+            rows.append((1,))
+            continue
+        hi = rows[k - 1]                 # T_{k-1}: powers of the other parity
+        lo = rows[k - 2]                 # T_{k-2}: powers of parity k, one term fewer
+        row = []
+        for i in range(len(lo) + 1):     # the coefficient of x^((k&1) + 2i)
+            v = 0
+            # 2x T_{k-1}: x^p of T_{k-1} becomes x^(p+1); p = (k&1) + 2i - 1
+            p = (k & 1) + 2 * i - 1
+            if p >= 0:
+                v = 2 * hi[(p - ((k - 1) & 1)) // 2]
+            if i < len(lo):
+                v -= lo[i]
+            row.append(v)
+        rows.append(tuple(row))
+    return rows
+
+
+def _power_form(n):
+    """Integer Chebyshev coefficients ``[n_0, ..., n_N]`` -> the integer coefficients
+    of the same polynomial in the power basis, highest power first ``[A_N, ..., A_0]``:
+    sum n_k T_k(x) = sum A_j x^j.  Exact: integers throughout (``_t_rows``).
+
+    The stored coefficients are integers times the quantity's quantum, so the
+    power form costs no precision at all; a coefficient is rounded once, when it
+    becomes a float.  Horner's rule in the power basis is as accurate as
+    Clenshaw's recurrence in the Chebyshev basis (C. W. Clenshaw, "A note on the
+    summation of Chebyshev series", MTAC 9, 1955) here because the series are smooth on
+    their segment and their coefficients fall fast: sum |A_j| stays within
+    2 sum |n_k| (every shipped segment is checked in ``tests/test_almanac.py``)."""
+    m = len(n)
+    rows = _t_rows(m)
+    a = [0] * m
+    for k in range(m):
+        nk = n[k]
+        if nk:
+            j = k & 1
+            for tk in rows[k]:
+                a[j] += nk * tk
+                j += 2
+    a.reverse()
+    return a
+
+
+def _horner(a, x, with_rate):
+    """(p, dp/dx) of the polynomial ``a = [a_N, ..., a_0]`` at ``x`` (dp/dx is 0 unless
+    ``with_rate``): Horner's rule, and the same rule on the running value for the
+    derivative (Knuth, *TAOCP* vol. 2, 4.6.4).  One ``for`` over the list, one
+    multiply-add per power: the fastest form in CPython and MicroPython alike."""
+    v = d = _float(0.0)
     if with_rate:
-        while k >= 1:
-            d1, d2 = (b1 + b1) + x2 * d1 - d2, d1
-            b1, b2 = c[k] + x2 * b1 - b2, b1
-            k -= 1
-        return c[0] + x * b1 - b2, b1 + x * d1 - d2
-    while k >= 1:
-        b1, b2 = c[k] + x2 * b1 - b2, b1
-        k -= 1
-    return c[0] + x * b1 - b2, d1
+        for ak in a:
+            d = d * x + v
+            v = v * x + ak
+        return v, d
+    for ak in a:
+        v = v * x + ak
+    return v, d
 
 
 class _Quantity(object):
@@ -157,7 +216,8 @@ class _Quantity(object):
 
 
 class _BodySeries(object):
-    __slots__ = ("body", "seg_us", "nseg", "bit0", "quantities", "seg_bits", "cached_index", "cached")
+    __slots__ = ("body", "seg_us", "nseg", "bit0", "quantities", "seg_bits", "cached_index", "cached",
+                 "decoded", "dxdt")
 
     def __init__(self, body, seg_days, nseg, data_offset, quantities):
         self.body = body
@@ -168,20 +228,40 @@ class _BodySeries(object):
         self.seg_bits = 0
         for q in quantities:
             self.seg_bits += q.bits
-        self.cached_index = -1
+        self.cached_index = -1      # packed form: the last decoded segment only
         self.cached = None
+        self.decoded = None         # decoded form (host): a list of every segment, filled on first use
+        self.dxdt = _float(2 * US_PER_S) / _float(self.seg_us)      # dx per second of the segment
 
 
 class AlmanacYear(object):
-    """One parsed ``.lca`` file: the series of both bodies for one UTC year."""
-    __slots__ = ("year", "start_tt_us", "buf", "series", "size")
+    """One parsed ``.lca`` file: the series of both bodies for one UTC year.
 
-    def __init__(self, year, start_tt_us, buf, series):
+    Packed form (``decoded=False``, the board's): the file's bytes are the only
+    store; a body's last decoded segment is kept, so evaluations inside one
+    segment decode nothing.  Decoded form (``decoded=True``, the host's): every
+    segment is decoded on its first use and kept (a list of floats per segment,
+    about 80 KB per year in CPython, 2.1 MB for 2025-2050), so evaluations at random instants decode
+    nothing once the year is warm.  Both forms run the same arithmetic on the
+    same numbers and give identical results."""
+    __slots__ = ("year", "start_tt_us", "buf", "series", "size", "is_decoded")
+
+    def __init__(self, year, start_tt_us, buf, series, decoded=False):
         self.year = year
         self.start_tt_us = start_tt_us
         self.buf = buf
         self.series = series
         self.size = len(buf)
+        self.is_decoded = False
+        if decoded:
+            self.decode()
+
+    def decode(self):
+        """Switch to the decoded form: keep every segment once it has been decoded."""
+        for s in self.series:
+            if s.decoded is None:
+                s.decoded = [None] * s.nseg
+        self.is_decoded = True
 
     def end_tt_us(self, body):
         s = self._series(body)
@@ -193,51 +273,89 @@ class AlmanacYear(object):
                 return s
         raise AlmanacError("body %r is not in the almanac file for %d" % (body, self.year))
 
-    def _coefficients(self, s, index):
-        """The three coefficient lists of segment ``index`` of series ``s``, in the quantities'
-        units (integer x power-of-two quantum, so the scaling is exact)."""
-        if s.cached_index == index:
-            return s.cached
+    def chebyshev(self, body, index):
+        """The three Chebyshev coefficient lists ``[c_0, ..., c_N]`` of segment ``index`` of
+        ``body``, as stored, in the quantities' units."""
+        s = self._series(body)
+        if not 0 <= index < s.nseg:
+            raise AlmanacError("segment %r outside the %s series for %d" % (index, body, self.year))
+        return self._chebyshev(s, index)
+
+    def _chebyshev(self, s, index, scaled=True):
+        # the stored integers of segment index, scaled by the quantum (exact: a power of two)
         buf = self.buf
         pos = s.bit0 + index * s.seg_bits
         read = _signed_bits
         out = []
         for q in s.quantities:
-            quantum = q.quantum
-            zero = quantum * 0
             c = []
             for w in q.widths:
                 if w:
-                    c.append(read(buf, pos, w) * quantum)
+                    c.append(read(buf, pos, w))
                     pos += w
                 else:
-                    c.append(zero)
+                    c.append(0)
+            if scaled:
+                quantum = q.quantum
+                for i in range(len(c)):
+                    c[i] = c[i] * quantum
             out.append(c)
-        s.cached = out
-        s.cached_index = index
         return out
+
+    def _decode(self, s, index):
+        """Segment ``index`` of series ``s`` as ``_horner`` takes it: the three quantities in
+        the power basis, highest power first, in the quantities' units (``_power_form`` of
+        the stored integers, each rounded once to a float and scaled by the quantum)."""
+        out = self._chebyshev(s, index, False)
+        for i in range(3):
+            a = _power_form(out[i])
+            quantum = s.quantities[i].quantum
+            for j in range(len(a)):
+                a[j] = _float(a[j]) * quantum
+            out[i] = a
+        return out
+
+    def _coefficients(self, s, index):
+        """Segment ``index`` of series ``s`` decoded (``_decode``), from the cache when kept."""
+        d = s.decoded
+        if d is not None:
+            c = d[index]
+            if c is None:
+                c = d[index] = self._decode(s, index)
+            return c
+        if s.cached_index != index:
+            s.cached = None         # drop the old segment before building the new one (heap)
+            s.cached = self._decode(s, index)
+            s.cached_index = index
+        return s.cached
 
     def evaluate(self, body, tt_us):
         """([ra_cio_deg, dec_deg, sd_or_hp_arcmin], [rates per second of the first two]) at TT ``tt_us``."""
+        ra, dec, third, ra_rate, dec_rate = self._eval(body, tt_us)
+        return [ra, dec, third], [ra_rate, dec_rate]
+
+    def _eval(self, body, tt_us):
+        # (ra, dec, third, ra_rate, dec_rate) at TT tt_us, rates per second
         s = self._series(body)
         off = tt_us - self.start_tt_us
-        index = off // s.seg_us
+        seg_us = s.seg_us
+        index = off // seg_us
         if index < 0 or index >= s.nseg:
             raise AlmanacError("instant (TT %s) outside the %s series of the almanac file for %d"
                                % (timescale.format_utc(tt_us), body, self.year))
-        coeffs = self._coefficients(s, index)
-        dt_us = off - index * s.seg_us
-        x = _float(2 * dt_us - s.seg_us) / _float(s.seg_us)
-        dxdt = _float(2 * US_PER_S) / _float(s.seg_us)      # dx per second
-        ra, ra_rate = _clenshaw(coeffs[0], x, True)
-        dec, dec_rate = _clenshaw(coeffs[1], x, True)
-        third, _ = _clenshaw(coeffs[2], x, False)
-        return [ra, dec, third], [ra_rate * dxdt, dec_rate * dxdt]
+        c_ra, c_dec, c_third = self._coefficients(s, index)
+        x = _float(2 * (off - index * seg_us) - seg_us) / _float(seg_us)
+        ra, ra_rate = _horner(c_ra, x, True)
+        dec, dec_rate = _horner(c_dec, x, True)
+        third, _ = _horner(c_third, x, False)
+        dxdt = s.dxdt
+        return ra, dec, third, ra_rate * dxdt, dec_rate * dxdt
 
 
-def parse(data, name="almanac file"):
-    """Bytes of a ``.lca`` file -> ``AlmanacYear``.  Raises ``AlmanacError`` naming
-    ``name`` and the problem when the file is truncated, corrupt or of another format."""
+def parse(data, name="almanac file", decoded=False):
+    """Bytes of a ``.lca`` file -> ``AlmanacYear`` (in the decoded form when ``decoded``).
+    Raises ``AlmanacError`` naming ``name`` and the problem when the file is truncated,
+    corrupt or of another format."""
     n = len(data)
     if n < _HEADER_SIZE + 4:
         raise AlmanacError("%s: truncated (%d bytes)" % (name, n))
@@ -272,7 +390,7 @@ def parse(data, name="almanac file"):
             series.append(s)
     except (struct.error, IndexError, TypeError):
         raise AlmanacError("%s: truncated header" % name)
-    return AlmanacYear(year, start_day * US_PER_DAY, data, series)
+    return AlmanacYear(year, start_day * US_PER_DAY, data, series, decoded)
 
 
 def _data_dir():
@@ -290,19 +408,29 @@ def _listdir(path):
 
 
 class Almanac(object):
-    """The almanac over a directory of ``YYYY.lca`` files, read lazily one year at a time
-    (the last two years used are kept)."""
+    """The almanac over a directory of ``YYYY.lca`` files, read lazily one year at a time.
 
-    def __init__(self, path, years, keep_years=2):
+    ``keep_years`` parsed years are kept (the most recently used).  ``decoded``
+    chooses the form of each kept year (see ``AlmanacYear``): packed on a board,
+    decoded on a host, where ``load()`` also keeps every year."""
+
+    def __init__(self, path, years, keep_years=2, decoded=False):
         self.path = path
         self.years = years          # sorted list of available years
         self.keep_years = keep_years
+        self.decoded = decoded
         self._cache = []            # [(year, AlmanacYear)], most recent last
-        self._first_us = timescale.days_from_civil(years[0], 1, 1) * US_PER_DAY
-        self._end_us = timescale.days_from_civil(years[-1] + 1, 1, 1) * US_PER_DAY
+        self._year_days = [timescale.days_from_civil(y, 1, 1) for y in years]
+        self._year_days.append(timescale.days_from_civil(years[-1] + 1, 1, 1))     # first day of each year, and the end
+        self._first_us = self._year_days[0] * US_PER_DAY
+        self._end_us = self._year_days[-1] * US_PER_DAY
+        self._by_year = {}          # decoded form: the kept years by number (the same objects as _cache)
         self._day = None            # UTC day of the last instant: its year file and TT - UTC
         self._day_year = None
         self._day_tt_us = 0
+        self._era_t_us = None       # instant and DUT1 of the last Earth rotation angle, and the angle
+        self._era_dut1_us = 0
+        self._era = 0.0
 
     def __repr__(self):
         return "Almanac(%r, %d-%d)" % (self.path, self.first_year, self.last_year)
@@ -321,6 +449,9 @@ class Almanac(object):
 
     def year(self, y):
         """The parsed ``AlmanacYear`` for UTC year ``y`` (read and checked on first use)."""
+        a = self._by_year.get(y)
+        if a is not None:
+            return a
         for yy, a in self._cache:
             if yy == y:
                 return a
@@ -332,12 +463,14 @@ class Almanac(object):
                 data = f.read()
         except OSError as e:
             raise AlmanacError("%s: cannot be read (%s)" % (name, e))
-        a = parse(data, name)
+        a = parse(data, name, self.decoded)
         if a.year != y:
             raise AlmanacError("%s: holds year %d" % (name, a.year))
         self._cache.append((y, a))
+        if self.decoded:
+            self._by_year[y] = a
         if len(self._cache) > self.keep_years:
-            self._cache.pop(0)
+            self._by_year.pop(self._cache.pop(0)[0], None)
         return a
 
     def position(self, body, t_us, dut1_us=0):
@@ -357,12 +490,23 @@ class Almanac(object):
                                % (timescale.format_utc(t_us), self.first_year, self.last_year))
         day = t_us // US_PER_DAY
         if day != self._day:        # TT - UTC and the year change only between UTC days
-            self._day_year = self.year(timescale.civil_from_days(day)[0])
+            starts = self._year_days
+            i = (day - starts[0]) * 4 // 1461           # whole Julian years: at most one off
+            if i > len(starts) - 2:
+                i = len(starts) - 2
+            while starts[i] > day:
+                i -= 1
+            while starts[i + 1] <= day:
+                i += 1
+            self._day_year = self.year(self.years[i])
             self._day_tt_us = timescale.tt_minus_utc_us(t_us)
             self._day = day
-        (ra, dec, third), (ra_rate, dec_rate) = self._day_year.evaluate(body, t_us + self._day_tt_us)
-        era = _float(timescale.era_deg(t_us, dut1_us))
-        gha = (era - ra) % _float(360.0)
+        ra, dec, third, ra_rate, dec_rate = self._day_year._eval(body, t_us + self._day_tt_us)
+        if t_us != self._era_t_us or dut1_us != self._era_dut1_us:     # Sun and Moon at one instant share it
+            self._era = _float(timescale.era_deg(t_us, dut1_us))
+            self._era_t_us = t_us
+            self._era_dut1_us = dut1_us
+        gha = (self._era - ra) % _float(360.0)
         if gha >= 360.0:            # a tiny negative remainder can round up to 360
             gha = _float(0.0)
         if body == "sun":
@@ -374,10 +518,23 @@ class Almanac(object):
         return Position(body, t_us, gha, dec, sd, hp, _float(ERA_RATE_DEG_PER_S) - ra_rate, dec_rate)
 
 
-def load(path=None, keep_years=2):
+def _on_host():
+    """True under CPython (a host), False under MicroPython (a board)."""
+    import sys
+    impl = getattr(sys, "implementation", None)
+    return getattr(impl, "name", "micropython") != "micropython"
+
+
+def load(path=None, keep_years=None, decoded=None):
     """The ``Almanac`` over the ``YYYY.lca`` files in directory ``path``
-    (default: the shipped ``engine/data``).  Files are read when first needed;
-    the last ``keep_years`` parsed years are kept (about 3 KB each)."""
+    (default: the shipped ``engine/data``).  Files are read when first needed.
+
+    ``decoded`` (default: True on a host, False under MicroPython) keeps each
+    year's segments decoded once used (``AlmanacYear``); ``keep_years`` parsed
+    years are kept (default: every year when decoded, else 2; a packed year is
+    its file, about 3 KB)."""
+    if decoded is None:
+        decoded = _on_host()
     if path is None:
         path = _data_dir()
     while len(path) > 1 and path[-1] in "/\\":
@@ -396,7 +553,9 @@ def load(path=None, keep_years=2):
     for i in range(1, len(years)):
         if years[i] != years[i - 1] + 1:
             raise AlmanacError("almanac files in %s skip from %d to %d" % (path, years[i - 1], years[i]))
-    return Almanac(path, years, keep_years)
+    if keep_years is None:
+        keep_years = len(years) if decoded else 2
+    return Almanac(path, years, keep_years, decoded)
 
 
 def describe_shipped(path=None):

@@ -40,7 +40,7 @@ from engine.timescale import format_utc
 FORMAT = "limbclock-calibration/1"
 D_ARCMIN = 0.5            # step of the numerical derivative in deviation
 D_S = 0.5                 # step of the numerical derivative in time
-FLOOR_ARCMIN = 0.1        # weight floor: model and almanac error per contact [D]
+FLOOR_ARCMIN = 0.1        # weight floor per contact, chosen for this project: above the model (0.002') and almanac (0.01') errors
 MAX_DELAY_S = 2.0
 
 

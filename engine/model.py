@@ -12,7 +12,10 @@ altitude of the body's centre,
 where SD_top is the topocentric (augmented) semi-diameter and PA the parallax
 in altitude, both evaluated at the topocentric altitude of the centre h_top:
 the Nautical Almanac's scheme (a) "augmented SD, parallax at the centre"
-(REFERENCES 1.5), applied to the Sun and the Moon alike.  With a position the
+(one consistent scheme: mixing it with "geocentric SD, parallax at the limb"
+counts the augmentation twice, about 0.3'; Explanatory Supplement to the
+Astronomical Almanac, 3rd ed. 2013, ch. 7 [from memory]), applied to the Sun
+and the Moon alike.  With a position the
 flattening term of the parallax is included.  ``sextant_altitude_deg`` is the
 exact inverse (it predicts the instant of a contact), and
 ``computed_alt_az`` the spherical Hc and Zn of the centre (Marcq St Hilaire):

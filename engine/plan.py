@@ -17,7 +17,8 @@ error is a few tenths of a second of time.  Times stay integers and every float 
 an offset within one interval, as single-precision boards need.
 
 What is left out.  Images below ``min_deviation_deg`` (default 3 deg: the
-refraction near the horizon varies by arcminutes; REFERENCES 1.3) are not
+refraction near the horizon varies by arcminutes: Young, "Sunset Science IV",
+AJ 127, 3622, 2004) are not
 scheduled; contacts under 10 deg are flagged ``low``.  Moon contacts within
 ``moon_min_elongation_deg`` (default 15 deg) of the Sun are skipped (a thin
 crescent beside the Sun is not seen).  A contact while the Sun is below -6 deg

@@ -5,10 +5,13 @@ POSIX style (leap seconds are not counted, every UTC day has 86 400 s).
 
 Leap seconds.  ``LEAP_SECONDS`` is the table of TAI - UTC from IERS Bulletin C
 (TAI - UTC = 37 s since 2017-01-01, Bulletin C 52 onwards).  It was last
-checked on ``LEAP_TABLE_CHECKED``; no leap second had been announced then, so
-the table is known good until ``LEAP_TABLE_VALID_UNTIL``.  Past that date the
-engine keeps using the last value (37 s) and says so through
-``leap_table_extrapolated``.  The cost of a leap second announced after that
+checked against Bulletin C 72 (July 2026: no leap second at the end of
+December 2026), so it is known good until the next date a leap second could
+be inserted, the end of 2027-06-30 (``LEAP_TABLE_VALID_UNTIL``; a leap second
+there would be announced in Bulletin C 73, January 2027).  Past that date
+the engine keeps using the last value (37 s) and says so through
+``leap_table_extrapolated``.  ``tests/test_timescale.py`` checks the table
+day by day against ERFA's ``eraDat`` and against IERS ``Leap_Second.dat``.  The cost of a leap second announced after that
 date would be one second of TT, which moves the Moon by less than 0.01' and the
 Sun by less than 0.001': the almanac stays usable, but refresh this table.
 
@@ -25,9 +28,8 @@ from engine.constants import (US_PER_S, US_PER_DAY, J2000_UNIX_DAYS, TT_MINUS_TA
 
 FIRST_YEAR = 1972          # start of the leap-second era (TAI - UTC = 10 s)
 LAST_YEAR = 2099           # latest year the parser accepts
-LEAP_TABLE_CHECKED = "2026-07-07"        # IERS Bulletin C 72: no leap second at the end of 2026 [M - check the current one]
-LEAP_TABLE_VALID_UNTIL = "2027-06-30T23:59:59Z"
-_VALID_UNTIL_DAY = 20999   # days from 1970-01-01 to 2027-07-01 [D]
+LEAP_TABLE_CHECKED = "2026-07-07"        # IERS Bulletin C 72 (July 2026): no leap second at the end of 2026
+LEAP_TABLE_VALID_UNTIL = "2027-06-30T23:59:59Z"   # the last second before the next possible leap second
 
 
 class TimeError(ValueError):
@@ -87,6 +89,10 @@ LEAP_SECONDS = (
     (days_from_civil(2009, 1, 1), 34), (days_from_civil(2012, 7, 1), 35),
     (days_from_civil(2015, 7, 1), 36), (days_from_civil(2017, 1, 1), 37),
 )
+
+
+# The first UTC day the table is no longer known good: 2027-07-01 (day 21000).
+_EXTRAPOLATED_FROM_DAY = days_from_civil(2027, 7, 1)
 
 
 def _digits(s, what):
@@ -186,20 +192,17 @@ def tai_minus_utc_s(t_us):
     Raises TimeError before 1972.  After ``LEAP_TABLE_VALID_UNTIL`` the last
     value is kept (see the module docstring)."""
     day = t_us // US_PER_DAY
-    if day < LEAP_SECONDS[0][0]:
-        raise TimeError("instants before 1972 are outside the leap-second table")
-    value = LEAP_SECONDS[0][1]
-    for first_day, v in LEAP_SECONDS:
-        if day >= first_day:
-            value = v
-        else:
-            break
-    return value
+    i = len(LEAP_SECONDS) - 1           # from the latest entry back: today's instants stop at once
+    while i >= 0:
+        if day >= LEAP_SECONDS[i][0]:
+            return LEAP_SECONDS[i][1]
+        i -= 1
+    raise TimeError("instants before 1972 are outside the leap-second table")
 
 
 def leap_table_extrapolated(t_us):
     """True when ``t_us`` lies past the date the leap-second table is known good."""
-    return t_us // US_PER_DAY >= _VALID_UNTIL_DAY
+    return t_us // US_PER_DAY >= _EXTRAPOLATED_FROM_DAY
 
 
 def tt_minus_utc_us(t_us):

@@ -39,7 +39,9 @@ def test_json_places_match_reference_vectors(capsys):
 def test_human_output_and_cautions(capsys):
     code, out, _ = _run(capsys, ["almanac", "--body", "sun", "--utc", "2026-06-21T12:00:00Z"])
     assert code == 0
-    # Sun's declination at the 2026 June solstice, +23 deg 26.3' (limbclock REFERENCES 7, IAU 2006 + nutation)
+    # Sun's declination at the 2026 June solstice, +23 deg 26.3': derived, the IAU 2006 mean obliquity
+    # (Capitaine et al. 2003) 23 deg 26' 09" in 2026 plus the nutation in obliquity then, +8" (the 18.6-year
+    # term 9.2" cos(node), IAU 1980/2000 nutation [from memory]); test_almanac.py checks the solstices
     assert "N23\u00b026.3'" in out
     assert all(line in out for line in CAUTION_LINES)
 

@@ -5,7 +5,7 @@ through its module-level ``_float`` and its trigonometry through its module-leve
 ``math``.  The test sets ``_float = numpy.float32`` and ``math`` to a shim whose
 ``sin``/``asin`` return ``numpy.float32`` (a correctly rounded single-precision
 libm), then loads the almanac afresh so the quanta are float32 too.  From there
-every intermediate (segment coordinate x, Clenshaw sums b_k and d_k, products
+every intermediate (segment coordinate x, the power-form coefficients, Horner sums, products
 with the quantum, GHA = ERA - RA and its reduction mod 360, the Moon's SD) is a
 ``numpy.float32`` and numpy (NEP 50) rounds each operation's result to single
 precision, as a board's FPU would.  The Earth rotation angle comes from
@@ -33,13 +33,16 @@ def test_single_precision_within_0_02_arcmin(monkeypatch):
     assert all(type(q.gha_deg) is float for q in expected)
     monkeypatch.setattr(almanac, "_float", np.float32)
     monkeypatch.setattr(almanac, "math", _F32_MATH)
-    single = almanac.load()
+    single = almanac.load()                 # the host's decoded form
+    board = almanac.load(decoded=False)     # the board's packed form: must give the same float32 numbers
     worst_vs_double = worst_vs_ref = 0.0
     for (utc, body, gha, dec, sd, hp), q in zip(rows, expected):
         t = ts.parse_utc(utc)
         p = single.position(body, t)
         assert type(p.gha_deg) is np.float32 and type(p.dec_deg) is np.float32
         assert type(p.sd_arcmin) is np.float32 and type(p.hp_arcmin) is np.float32
+        b = board.position(body, t)
+        assert (b.gha_deg, b.dec_deg, b.sd_arcmin, b.hp_arcmin) == (p.gha_deg, p.dec_deg, p.sd_arcmin, p.hp_arcmin)
         e = max(abs((float(p.gha_deg) - q.gha_deg + 180.0) % 360.0 - 180.0) * 60.0,
                 abs(float(p.dec_deg) - q.dec_deg) * 60.0,
                 abs(float(p.sd_arcmin) - q.sd_arcmin), abs(float(p.hp_arcmin) - q.hp_arcmin))

@@ -1,6 +1,7 @@
 """The almanac evaluator under MicroPython (WebAssembly port) gives CPython's numbers, and its heap cost.
 
-The WebAssembly port computes in double precision, so CPython and MicroPython
+The WebAssembly port computes in double precision, so CPython (the host's
+decoded form) and MicroPython (the board's packed form, the default there)
 must agree to ~1e-9 deg (single-precision behaviour is covered by
 ``tests/test_almanac_float32.py``).  Instants: every 103rd row of
 ``vectors/almanac_reference.json``.
@@ -55,10 +56,12 @@ try:
 except almanac.AlmanacError as e:
     errors.append(str(e))
 d = almanac.describe_shipped()
-print(json.dumps({"heap": m1 - m0, "out": out, "errors": errors, "bytes": d["bytes"], "last": d["last_utc"]}))
+print(json.dumps({"heap": m1 - m0, "out": out, "errors": errors, "bytes": d["bytes"], "last": d["last_utc"],
+                  "decoded": alm.decoded, "keep": alm.keep_years}))
 """ % (sample,)
     got = json.loads(run_micropython(code).strip().splitlines()[-1])
-    alm = almanac.load()
+    assert got["decoded"] is False and got["keep"] == 2      # a board keeps the packed form
+    alm = almanac.load()                                     # the host's decoded form
     for (utc, body), vals in zip(sample, got["out"]):
         p = alm.position(body, ts.parse_utc(utc))
         ref = [p.gha_deg, p.dec_deg, p.sd_arcmin, p.hp_arcmin, p.gha_rate_deg_per_s, p.dec_rate_deg_per_s]

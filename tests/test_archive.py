@@ -3,7 +3,7 @@ voids, session grouping, the session document.
 
 Outside references: SQLite's own ``PRAGMA integrity_check`` / ``foreign_key_check``
 and its documented WAL journal mode (sqlite.org/wal.html, sqlite.org/pragma.html);
-the session document is validated against DESIGN.md's ``limbclock-session/1`` keys.
+the session document is validated against the ``limbclock-session/1`` keys (DEVELOPERS.md).
 """
 import json
 import sqlite3
@@ -166,14 +166,14 @@ def test_session_document_round_trip(tmp_path):
                               instrument_id=iid)
     archive.set_image_labels(conn, "T-1", {1: "i02"})
     doc = json.loads(archive.session_text(conn, sid))
-    # DESIGN.md limbclock-session/1: format, observer, instrument.images, track, contacts[utc, body, limb, image]
+    # limbclock-session/1 (DEVELOPERS.md): format, observer, instrument.images, track, contacts[utc, body, limb, image]
     assert doc["format"] == "limbclock-session/1"
     assert doc["instrument"]["images"][1] == {"id": "i02", "deviation_deg": 8.1, "sigma_arcmin": 0.4}
     assert [(c["utc"], c["limb"], c["image"], c.get("void", False), c["sigma_s"]) for c in doc["contacts"]] == [
         ("2031-05-14T07:00:00.000000Z", "lower", None, True, 0.0004),      # voided: kept, marked
         ("2031-05-14T07:06:40.000000Z", "upper", "i02", False, 0.0004)]
     assert timescale.parse_utc(doc["contacts"][1]["utc"]) == T0 + 400000000
-    # the engine's reader accepts it (DESIGN.md contract)
+    # the engine's reader accepts it (the limbclock-session/1 contract, DEVELOPERS.md)
     from engine.session import parse_session
     s = parse_session(json.dumps(doc))
     assert [c.void for c in s.contacts] == [True, False] and s.contacts[1].image == "i02"

@@ -66,8 +66,9 @@ def test_all_rising_holds_delay_and_warns():
         assert abs(im["deviation_deg"] - TRUE[im["id"]]) * 60.0 < 0.2
     # a delay that cannot be separated goes into the offsets: 0.3 s x rate (~0.2'/s) per image
     r2 = calibrate.calibrate_session(session_text(scn, rising, perturbed_images(5), 0.3), ALM)
-    # expected: the altitude rate 0.25' cos(lat) sin(Zn) per second (REFERENCES section 2, rate of a
-    # timed contact [D]) times 0.3 s, averaged over the image's contacts (Zn from the reference)
+    # expected: the altitude rate 0.25' cos(lat) sin(Zn) per second (derived: the time derivative of the
+    # altitude formula at 15 deg/h of LHA; checked against ERFA in tests/test_sphere.py) times 0.3 s,
+    # averaged over the image's contacts (Zn from the reference)
     lat = math.radians(scn["track"]["lat_deg"])
     for im in r2["images"]:
         zns = [c["zn_deg"] for c in rising if c["image"] == im["id"]]

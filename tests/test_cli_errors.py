@@ -2,9 +2,9 @@
 a missing port, a busy port, a silent port, a corrupt session file, an unknown or malformed
 instrument file, a file that is not an archive, a missing archive.
 
-Reference: the project's command-line contract (DESIGN.md, STYLE.md "Errors at the edges":
-one line and a non-zero exit code, the traceback only with --debug); POSIX exit status
-2 for usage/input errors is common practice.
+Reference: the project's command-line contract (DEVELOPERS.md, "The command line": one line
+and exit code 2, the traceback only with --debug); POSIX exit status 2 for usage/input errors
+is common practice.
 """
 import os
 import subprocess

@@ -5,7 +5,8 @@ must land nearer the true position than the dead reckoning does.  The files it w
 are checked against their standards: PNG signature (ISO/IEC 15948:2004 section 5.2),
 SVG namespace (W3C SVG 1.1), GPX 1.1 namespace and structure (topografix.com/GPX/1/1),
 GeoJSON coordinate order lon, lat (RFC 7946 section 3.1.1), CSV (RFC 4180) with one row
-per contact; the session file is read back by the engine's own reader (DESIGN.md).
+per contact; the session file is read back by the engine's own reader (the ``limbclock-session/1``
+contract in DEVELOPERS.md).
 """
 import csv
 import json

@@ -2,8 +2,8 @@
 
 Truth is the simulated world's own UTC (the oscillator model in
 ``device.simhw``); the checks are physical: a stamp within 1 ms of the true
-press while locked (the timer's purpose: 1 s of time is 15" of longitude,
-REFERENCES.md section 4), and within the stated uncertainty in holdover.
+press while locked (the timer's purpose: 1 s of time is 15" of longitude, the Earth turning
+360 deg in 24 h; common practice), and within the stated uncertainty in holdover.
 """
 from hypothesis import given, settings, strategies as st
 

@@ -1,7 +1,9 @@
 """NMEA 0183 time sentences (RMC, ZDA) as the timer reads them.
 
-Sentences are built here from the field layouts published in receiver manuals
-(REFERENCES.md section 4) with a checksum helper written independently of
+Sentences are built here from the field layouts of the NMEA 0183 standard (National Marine
+Electronics Association, NMEA 0183 v4.11, 2018) as reproduced in receiver manuals (e.g. u-blox,
+"u-blox 8 / M8 Receiver description", UBX-13003221, NMEA RMC and ZDA) [from memory; the
+standard itself not consulted] with a checksum helper written independently of
 ``device.nmea``; expected instants come from Python's ``datetime``.
 """
 import datetime
@@ -14,7 +16,7 @@ EPOCH = datetime.datetime(1970, 1, 1, tzinfo=datetime.timezone.utc)
 
 
 def xor_hex(body):
-    """NMEA checksum: XOR of the characters between '$' and '*', 2 hex digits (REFERENCES.md s.4)."""
+    """NMEA checksum: XOR of the characters between '$' and '*', 2 hex digits (NMEA 0183, as above)."""
     c = 0
     for ch in body:
         c ^= ord(ch)

@@ -82,7 +82,8 @@ def test_f_quantile_against_table(v, f):
 
 
 def test_ellipse_k_and_axes():
-    # k = sqrt(-2 ln 0.05) = 2.448 for 95 % (REFERENCES 2); axes of a known covariance
+    # k = sqrt(-2 ln 0.05) = 2.448 for 95 %: chi-square with 2 degrees of freedom, P = 1 - exp(-k^2/2)
+    # (Mikhail, Observations and Least Squares, 1976 [from memory]); axes of a known covariance
     assert abs(math.sqrt(fix.ellipse_k2(0.5, 10)) - 2.448) < 0.0005
     assert fix.ellipse_k2(2.0, 10) == pytest.approx(4.0 * 2.0 * fix.f2_quantile(10))
     major, minor, axis = fix.ellipse(4.0, 0.0, 1.0, 1.0)

@@ -1,8 +1,15 @@
-"""Contact schedule against the reference pipeline's contact times.
+"""Contact schedule against the reference pipeline's contact times and geometry.
 
 Reference: ``vectors/schedule_contacts.json`` written by ``vectors/generate_schedule.py``
 (JPL DE421 + ERFA exact topocentric geometry, Bennett's refined refraction, the
-Nautical Almanac dip, an exact rhumb line; all independent of the engine)."""
+Nautical Almanac dip, an exact rhumb line; all independent of the engine), and the
+same reference computed here (``vectors.reference``, ``vectors.generate_schedule``)
+for the flags: Sun altitude for ``dark``, the Moon-Sun elongation for the Moon's
+visibility rule, the sextant altitude for ``low``, each just either side of its
+threshold.
+
+Tolerance on contact times: 0.1 s (the engine's refinement stops at a 50 ms bracket;
+measured against the vectors: 0.008 s)."""
 import json
 import os
 
@@ -10,10 +17,11 @@ import numpy as np
 import pytest
 
 from engine import almanac, plan
+from engine.angles import norm180
 from engine.model import Observer, Track
 from engine.timescale import format_utc, parse_utc
 from mpy import run_micropython
-from vectors import generate_schedule as gen
+from vectors import generate_schedule as gen, reference
 
 VECTORS = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "vectors",
                        "schedule_contacts.json")
@@ -21,6 +29,8 @@ with open(VECTORS) as _f:
     DOC = json.load(_f)
 ALM = almanac.load()
 IMAGES = [(i["id"], i["deviation_deg"]) for i in DOC["images"]]
+TOL_US = 100000             # 0.1 s
+MIN = 60 * 1000000
 
 
 def scenario(s):
@@ -31,21 +41,21 @@ def scenario(s):
 
 
 @pytest.mark.parametrize("s", DOC["scenarios"], ids=[s["name"] for s in DOC["scenarios"]])
-def test_schedule_matches_reference_within_one_second(s):
+def test_schedule_matches_reference_within_a_tenth_of_a_second(s):
     tr, ob = scenario(s)
     got = plan.schedule(ALM, IMAGES, tr, ob, parse_utc(s["from"]), parse_utc(s["to"]), moon_min_elongation_deg=0.0)
     ref = s["contacts"]
     assert len(got) == len(ref)
     for r, c in zip(ref, got):
         assert (c.body, c.limb, c.image, c.direction) == (r["body"], r["limb"], r["image"], r["direction"])
-        assert abs(c.t_us - parse_utc(r["utc"])) < 1000000, (r, c.to_dict())
+        assert abs(c.t_us - parse_utc(r["utc"])) < TOL_US, (r, c.to_dict())
         assert abs((c.zn_deg - r["zn_deg"] + 180) % 360 - 180) < 0.1
     # with the default visibility rules the schedule is a subset of the reference
     default = plan.schedule(ALM, IMAGES, tr, ob, parse_utc(s["from"]), parse_utc(s["to"]))
-    keys = set((c["utc"][:19], c["body"], c["limb"], c["image"]) for c in ref)
+    keys = set((c["utc"], c["body"], c["limb"], c["image"]) for c in ref)
     assert len(default) <= len(got)
     for c in default:
-        assert any(k[1:] == (c.body, c.limb, c.image) and abs(parse_utc(k[0] + "Z") - c.t_us) < 2000000
+        assert any(k[1:] == (c.body, c.limb, c.image) and abs(parse_utc(k[0]) - c.t_us) < TOL_US
                    for k in keys)
 
 
@@ -108,7 +118,7 @@ def test_cli_plan_with_session_and_without(tmp_path, capsys):
     assert d["contacts"]
     for c in d["contacts"]:
         assert set(["utc", "body", "limb", "image", "direction"]) <= set(c)
-        assert abs(parse_utc(c["utc"]) - ref[(c["body"], c["limb"], c["image"], c["direction"])]) < 1000000
+        assert abs(parse_utc(c["utc"]) - ref[(c["body"], c["limb"], c["image"], c["direction"])]) < TOL_US
     inst = tmp_path / "inst.json"
     assert main(["ladder", "--plates", "2.7", "4.05", "--write", str(inst)]) == 0
     capsys.readouterr()
@@ -151,4 +161,108 @@ def test_schedule_under_micropython():
            and "2026-08-03T07" <= c["utc"] < "2026-08-03T09"]
     assert len(got) == len(ref) > 3
     for g, r in zip(got, ref):
-        assert g[1] == r["image"] and g[2] == r["direction"] and abs(g[0] - parse_utc(r["utc"])) < 1000000
+        assert g[1] == r["image"] and g[2] == r["direction"] and abs(g[0] - parse_utc(r["utc"])) < TOL_US
+
+
+# ---- the flags, each against the reference pipeline just either side of its threshold ----
+
+def _ref_hs(body, limb, t_us, track_d, observer_d):
+    """Reference sextant altitude (deg) of a limb at one instant (vectors/generate_schedule.py)."""
+    hs, _ = gen.sextant_altitude(body, limb, np.array([t_us], dtype=np.int64), track_d, observer_d)
+    return float(hs[0])
+
+
+def _ref_sun_alt(t_us, track_d):
+    """Reference true altitude (deg) of the Sun's centre at the ship (DE421 + ERFA, topocentric)."""
+    lat, lon = gen.rhumb(track_d, np.array([t_us], dtype=np.int64))
+    return float(reference.topocentric_alt_az("sun", np.array([t_us], dtype=np.int64), lat, lon)["alt_deg"][0])
+
+
+def _ref_elongation(t_us):
+    """Reference geocentric Moon-Sun elongation (deg): angle between the apparent directions."""
+    t = np.array([t_us], dtype=np.int64)
+    u = np.sum(reference.apparent("sun", t)["tirs"] * reference.apparent("moon", t)["tirs"], axis=-1)
+    return float(np.degrees(np.arccos(np.clip(u, -1.0, 1.0)))[0])
+
+
+def _bisect(f, a, b, level):
+    """The instant in [a, b] where f crosses ``level`` (f monotonic there), to 1 ms."""
+    fa = f(a) - level
+    assert (fa < 0) != (f(b) - level < 0)
+    while b - a > 1000:
+        m = (a + b) // 2
+        if (f(m) - level < 0) == (fa < 0):
+            a = m
+        else:
+            b = m
+    return (a + b) // 2
+
+
+def _two_moon_images_around(t_us, track_d, observer_d, dt_us):
+    """Images whose reference Moon lower-limb contacts fall exactly at t_us -/+ dt_us."""
+    return [("before", _ref_hs("moon", "lower", t_us - dt_us, track_d, observer_d)),
+            ("after", _ref_hs("moon", "lower", t_us + dt_us, track_d, observer_d))]
+
+
+@pytest.mark.parametrize("name, guess, rising_sun", [("azores-summer", "2026-08-03T06:00:00Z", True),
+                                                      ("doldrums-moon", "2025-11-26T20:00:00Z", False)])
+def test_dark_flag_against_the_reference_sun_altitude(name, guess, rising_sun):
+    # Moon contacts 2 min either side of the instant the reference Sun crosses -6 deg (civil
+    # twilight) at the ship, dawn and dusk: 'dark' exactly on the side where the Sun is lower.
+    # The Sun moves about 0.5 deg in 2 min there, so a threshold moved by more than that fails.
+    s = [x for x in DOC["scenarios"] if x["name"] == name][0]
+    tr, ob = scenario(s)
+    g = parse_utc(guess)
+    t6 = _bisect(lambda t: _ref_sun_alt(t, s["track"]), g - 60 * MIN, g + 60 * MIN, -6.0)
+    images = _two_moon_images_around(t6, s["track"], s["observer"], 2 * MIN)
+    got = plan.schedule(ALM, images, tr, ob, t6 - 10 * MIN, t6 + 10 * MIN, bodies=("moon",), limbs=("lower",))
+    assert [c.image for c in got] == ["before", "after"]
+    for c, want_t in zip(got, (t6 - 2 * MIN, t6 + 2 * MIN)):
+        assert abs(c.t_us - want_t) < TOL_US
+        sun_alt = _ref_sun_alt(c.t_us, s["track"])
+        assert 0.2 < abs(sun_alt + 6.0) < 1.0          # near the threshold, clearly on one side
+        assert c.dark == (sun_alt < -6.0), (c.to_dict(), sun_alt)
+    assert [c.dark for c in got] == ([True, False] if rising_sun else [False, True])
+    # Sun contacts are never 'dark'
+    sun = plan.schedule(ALM, [("s", _ref_hs("sun", "lower", t6 + 40 * MIN, s["track"], s["observer"]))], tr, ob,
+                        t6 - 60 * MIN, t6 + 60 * MIN, bodies=("sun",), limbs=("lower",)) if rising_sun else []
+    assert all(not c.dark for c in sun)
+
+
+def test_moon_elongation_limit_against_the_reference():
+    # An invented station (stationary track) under a young Moon: the reference geocentric elongation
+    # passes 15 deg on 2026-08-13 near 20:40 UTC, growing 0.55 deg/h.  Moon contacts 1 h either side:
+    # the one at 14.5 deg is skipped by default, the one at 15.5 deg kept; both with the limit off.
+    # Moving the limit by more than 0.5 deg (e.g. 15 -> 5 or 15 -> 16) fails.
+    t15 = _bisect(_ref_elongation, parse_utc("2026-08-13T12:00:00Z"), parse_utc("2026-08-14T06:00:00Z"), 15.0)
+    moon = reference.apparent("moon", np.int64(t15))
+    lon = norm180(305.0 - float(moon["gha_deg"]))           # Moon rising in the east-south-east at t15
+    track_d = {"utc": format_utc(t15, 0), "lat_deg": 10.0, "lon_deg": lon, "course_deg": 0.0, "speed_kn": 0.0}
+    observer_d = {"eye_height_m": 2.5, "temperature_c": 25.0, "pressure_hpa": 1012.0}
+    tr = Track(parse_utc(track_d["utc"]), 10.0, lon, 0.0, 0.0)
+    ob = Observer(2.5, 25.0, 1012.0)
+    images = _two_moon_images_around(t15, track_d, observer_d, 60 * MIN)
+    assert all(d > 10.0 for _, d in images)
+    window = (t15 - 75 * MIN, t15 + 75 * MIN)
+    free = plan.schedule(ALM, images, tr, ob, *window, bodies=("moon",), limbs=("lower",), moon_min_elongation_deg=0.0)
+    assert [c.image for c in free] == ["before", "after"]
+    for c, want_t in zip(free, (t15 - 60 * MIN, t15 + 60 * MIN)):
+        assert abs(c.t_us - want_t) < TOL_US
+    e_before, e_after = _ref_elongation(free[0].t_us), _ref_elongation(free[1].t_us)
+    assert 14.3 < e_before < 14.7 and 15.3 < e_after < 15.7
+    default = plan.schedule(ALM, images, tr, ob, *window, bodies=("moon",), limbs=("lower",))
+    assert [c.image for c in default] == ["after"] and default[0].t_us == free[1].t_us
+
+
+def test_low_flag_against_the_reference_altitude():
+    # Images at 9.9 and 10.1 deg: the reference sextant altitude at each scheduled contact is its
+    # deviation (within 0.001 deg), and only the contact under 10 deg is flagged 'low'.
+    s = DOC["scenarios"][0]
+    tr, ob = scenario(s)
+    got = plan.schedule(ALM, [("a", 9.9), ("b", 10.1)], tr, ob, parse_utc(s["from"]), parse_utc(s["to"]),
+                        bodies=("sun",), limbs=("lower",))
+    assert sorted(set(c.image for c in got)) == ["a", "b"] and len(got) == 4      # rising and setting
+    for c in got:
+        hs = _ref_hs("sun", "lower", c.t_us, s["track"], s["observer"])
+        assert abs(hs - c.deviation_deg) < 0.001
+        assert c.low == (hs < 10.0) and c.low == (c.image == "a")

@@ -1,4 +1,4 @@
-"""limbclock-session/1 reader: the DESIGN.md example, every validation error, extras kept, fuzzing."""
+"""limbclock-session/1 reader: the contract's example (DEVELOPERS.md), every validation error, extras kept, fuzzing."""
 import copy
 import json
 
@@ -8,7 +8,7 @@ from hypothesis import given, settings, strategies as st
 from engine import almanac
 from engine.session import SessionError, parse_session, session_from_dict
 
-# the example of DESIGN.md ("Session file"), verbatim
+# the example of the contract (DEVELOPERS.md, "Session file limbclock-session/1"), verbatim
 EXAMPLE = {"format": "limbclock-session/1",
            "observer": {"eye_height_m": 2.4, "temperature_c": 17.0, "pressure_hpa": 1008.0},
            "instrument": {"images": [{"id": "i01", "deviation_deg": 5.3612}, {"id": "i02", "deviation_deg": 7.9020}]},
@@ -159,7 +159,7 @@ def test_fuzz_garbage_text(raw):
 
 
 def test_planning_accepts_an_empty_contact_list():
-    # planning needs only the track and the instrument (DESIGN.md: plan ignores the session's contacts)
+    # planning needs only the track and the instrument (DEVELOPERS.md: plan ignores the session's contacts)
     data = copy.deepcopy(EXAMPLE)
     data["contacts"] = []
     s = parse_session(json.dumps(data), need_contacts=False)

@@ -1,4 +1,4 @@
-"""Spherical helpers against ERFA and textbook facts."""
+"""Spherical helpers against ERFA and textbook facts (sources: ``tests/SOURCES.md``)."""
 import math
 
 import erfa
@@ -26,7 +26,9 @@ def test_alt_az_against_erfa_hd2ae():
 
 
 def test_altitude_derivatives_finite_difference():
-    # dH/dLHA = cos lat sin Zn (REFERENCES 2) and dH/ddec, against central differences of ERFA's hd2ae
+    # dH/dLHA = cos lat sin Zn and dH/ddec (the derivatives of sin H = sin lat sin dec + cos lat cos dec
+    # cos LHA; Smart, Textbook on Spherical Astronomy, 6th ed. 1977 [from memory]), against central
+    # differences of ERFA's hd2ae
     rng = np.random.default_rng(7)
     for _ in range(300):
         lat, dec, lha = rng.uniform(-70, 70), rng.uniform(-28, 28), rng.uniform(0, 360)
@@ -43,22 +45,27 @@ def test_altitude_derivatives_finite_difference():
 
 
 def test_rate_check_values():
-    # REFERENCES 7: dH/dt at Zn 90 deg for lat 0/30/45/60 = 0.250/0.217/0.177/0.125 '/s (15 deg/h of LHA)
+    # dH/dt at Zn 90 deg for lat 0/30/45/60 = 0.250/0.217/0.177/0.125 '/s: the formula restated
+    # (15 deg/h of LHA x cos lat).  Independent: ERFA's hd2ae over one second of LHA (15"), below.
     for lat, rate in ((0.0, 0.250), (30.0, 0.217), (45.0, 0.177), (60.0, 0.125)):
         h, zn = sphere.alt_az(lat, 0.0, 270.0)          # on the equator, rising due east
         assert abs(zn - 90.0) < 1e-9 and abs(h) < 1e-9
         d_lha, _ = sphere.alt_derivatives(lat, 0.0, 270.0, h, zn)
         assert abs(d_lha * 15.0 / 3600.0 * 60.0 - rate) < 0.0005
+        step = math.radians(15.0 / 3600.0)              # one second of time, in hour angle
+        el = [erfa.hd2ae(math.radians(270.0) + s * step, 0.0, math.radians(lat))[1] for s in (-0.5, 0.5)]
+        assert abs(math.degrees(el[1] - el[0]) * 60.0 - rate) < 0.0005
 
 
 def test_dr_textbook_cases():
     hour = 3600 * US_PER_S
-    # 1 nmi = 1' of latitude; departure along the equator is 1' of longitude (common practice)
+    # 1 nmi = 1' of latitude; departure along the equator is 1' of longitude (common practice; the
+    # nautical mile's definition on the sphere)
     lat, lon = sphere.dr_position(10.0, 20.0, 0.0, 6.0, 10 * hour)
     assert abs(lat - 11.0) < 1e-12 and abs(lon - 20.0) < 1e-12
     lat, lon = sphere.dr_position(0.0, 179.5, 90.0, 60.0, hour)
     assert abs(lat) < 1e-12 and abs(lon - (-179.5)) < 1e-9
-    # along a parallel the departure is d cos(lat) (NA DR formula)
+    # along a parallel the departure is d cos(lat) (the Nautical Almanac's DR formula, "Explanation")
     lat, lon = sphere.dr_position(60.0, 0.0, 270.0, 30.0, hour)
     assert abs(lat - 60.0) < 1e-12 and abs(lon + 1.0) < 1e-9
 

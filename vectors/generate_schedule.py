@@ -1,7 +1,7 @@
 """Reference contact times: when each image of the Sun or Moon touches the horizon.
 
 Writes ``vectors/schedule_contacts.json``, used by ``tests/test_plan.py``
-(schedule within 1 s), ``tests/test_calibrate.py`` (noise-free contacts at the
+(schedule within 0.1 s), ``tests/test_calibrate.py`` (noise-free contacts at the
 true deviations) and ``tests/test_identify.py`` (sessions with unlabelled
 contacts).  Regenerate with ``.venv/bin/python -m vectors.generate_schedule``.
 
