@@ -48,9 +48,10 @@ def fuzz(examples):
                 name, seed = data.draw(st.sampled_from(fz.SEEDS))
                 doc = fz.seed_for(command, seed)
                 text, what = data.draw(fz.mutated(doc))
+                json_out = data.draw(st.sampled_from((True, True, True, False)))
                 tally["n"] += 1
                 try:
-                    outcome = fz.run_one(command, doc, text, work)
+                    outcome = fz.run_one(command, doc, text, work, json_out)
                 except BaseException as exc:      # a crash: keep going, report it below
                     if isinstance(exc, KeyboardInterrupt):
                         raise

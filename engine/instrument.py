@@ -504,8 +504,7 @@ def parse_images(items, path="images"):
         iid = it.get("id")
         if not isinstance(iid, str) or not iid:
             raise InstrumentError("%s.id: expected a non-empty string, got %s" % (p, limits.show(iid)))
-        if len(iid) > limits.MAX_ID_CHARS:
-            raise InstrumentError("%s.id: %d characters; at most %d" % (p, len(iid), limits.MAX_ID_CHARS))
+        limits.text(iid, p + ".id", InstrumentError, limits.MAX_ID_CHARS)
         if iid in seen:
             raise InstrumentError("%s.id: duplicate image id %r" % (p, iid))
         seen.add(iid)

@@ -107,11 +107,16 @@ def field(obj, key, path, error, default=None, required=True, name=None):
 
 
 def text(x, path, error, max_chars, what="text"):
-    """A non-empty str of at most ``max_chars`` characters."""
+    """A non-empty str of at most ``max_chars`` printable characters (no control characters, no
+    lone surrogates: an id is printed in tables and written to terminals)."""
     if not isinstance(x, str) or not x:
         raise error("%s: must be a non-empty %s, got %s" % (path, what, show(x)))
     if len(x) > max_chars:
         raise error("%s: %d characters; at most %d" % (path, len(x), max_chars))
+    for ch in x:
+        o = ord(ch)
+        if o < 32 or 127 <= o < 160 or 0xD800 <= o <= 0xDFFF:
+            raise error("%s: %s holds a control character or a lone surrogate" % (path, show(x)))
     return x
 
 

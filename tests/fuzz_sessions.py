@@ -55,14 +55,16 @@ def seed_for(command, doc):
     return d
 
 
-def argv_for(command, path, doc):
-    """The command line for a session file; ``plan``'s window is the seed's first 12 hours."""
+def argv_for(command, path, doc, json_out=True):
+    """The command line for a session file; ``plan``'s window is the seed's first 12 hours.
+    ``json_out=False``: the human output (tables and the cautions) instead of ``--json``."""
+    tail = ["--json"] if json_out else []
     if command == "plan":
         t0 = doc["track"]["utc"]
         from engine import timescale
         t1 = timescale.format_utc(timescale.parse_utc(t0) + 12 * 3600 * 1000000, 0)
-        return ["plan", path, "--from", t0, "--to", t1, "--json"]
-    return [command, path, "--json"]
+        return ["plan", path, "--from", t0, "--to", t1] + tail
+    return [command, path] + tail
 
 
 # ----------------------------------------------------------------------------------------------- running
@@ -100,9 +102,13 @@ def finite_json(text):
 
 def check(command, argv, rc, out, err):
     """Assert the contract for one run; on a crash re-run with --debug so the traceback shows.
-    Returns "ok" or the refusal line."""
+    Returns "ok" or the refusal line.  Human output (no ``--json``) must end with the cautions."""
     if rc == 0:
-        finite_json(out)
+        if "--json" in argv:
+            finite_json(out)
+        else:
+            from host.cautions import CAUTION_TEXT
+            assert out.rstrip().endswith(CAUTION_TEXT), out[-500:]
         return "ok"
     if rc == 2:
         lines = err.splitlines()
@@ -125,9 +131,9 @@ def drive(command, text, directory):
     return path
 
 
-def run_one(command, doc_for_argv, text, directory):
+def run_one(command, doc_for_argv, text, directory, json_out=True):
     path = drive(command, text, directory)
-    argv = argv_for(command, path, doc_for_argv)
+    argv = argv_for(command, path, doc_for_argv, json_out)
     rc, out, err = run_cli(argv)
     return check(command, argv, rc, out, err)
 
@@ -141,7 +147,7 @@ def refusal_kind(line):
                         ("must be a finite number", "non-finite number"), ("limit for any integer", "huge integer"),
                         ("integer beyond", "huge integer"), ("ASCII digits", "non-ASCII digits"),
                         (" outside ", "out of range"), ("must be a number", "not a number"),
-                        ("missing", "missing field"), ("must be one of", "bad choice"),
+                        ("missing", "missing field"), ("must be one of", "bad choice"), ("empty (", "empty list"),
                         ("is not ISO 8601", "bad time"), ("must be UTC", "bad time"),
                         ("characters", "text too long"), ("time ", "bad time"), ("format", "format tag"),
                         ("must be", "wrong type"), ("not in the instrument", "unknown image")):

@@ -26,7 +26,7 @@ from engine import limits
 from engine.session import parse_session
 
 ROOT = fz.ROOT
-EXAMPLES_PER_COMMAND = 40       # make test: 160 inputs in all; make bench runs many more
+EXAMPLES_PER_COMMAND = 50       # make test: 200 inputs in all; make bench runs many more
 
 
 @pytest.fixture(scope="module")
@@ -42,7 +42,7 @@ def test_fuzz_command(command, workdir):
         name, seed = data.draw(st.sampled_from(fz.SEEDS), label="seed")
         doc = fz.seed_for(command, seed)
         text, what = data.draw(fz.mutated(doc), label="mutations")
-        fz.run_one(command, doc, text, workdir)
+        fz.run_one(command, doc, text, workdir, data.draw(st.sampled_from((True, True, True, False)), label="json"))
     one()
 
 

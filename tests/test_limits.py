@@ -82,6 +82,8 @@ def test_number_checks_type_and_range_before_float():
     ("instrument__plate_angles_deg", [2.0, 30.0], r"^instrument\.plate_angles_deg\[1\]: 30\.0 must lie strictly"),
     ("instrument__plate_angles_deg", [1.0] * 7, r"^instrument\.plate_angles_deg: must be a list of 1\.\.6 angles"),
     ("instrument__images__0__id", "x" * 33, r"^instrument\.images\[0\]\.id: 33 characters; at most 32$"),
+    ("instrument__images__0__id", "i\n01", r'^instrument\.images\[0\]\.id: "i\\n01" holds a control character'),
+    ("instrument__images__0__id", "i\ud80001", r"^instrument\.images\[0\]\.id: .* or a lone surrogate$"),
     ("contacts__0__sigma_s", 61, r"^contacts\[0\]\.sigma_s: 61\.0 outside 0\.0\.\.60\.0$"),
     ("contacts__0__utc", 1880433672, r"^contacts\[0\]\.utc: must be ISO 8601 UTC text"),
     ("dut1_s", 0.95, r"^session\.dut1_s: 0\.95 outside -0\.9\.\.0\.9$"),
