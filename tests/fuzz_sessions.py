@@ -145,7 +145,7 @@ def refusal_kind(line):
                         ("nested deeper", "nesting"), ("bytes", "file size"),
                         ("contacts; at most", "contact count"), ("images; at most", "image count"),
                         ("must be a finite number", "non-finite number"), ("limit for any integer", "huge integer"),
-                        ("integer beyond", "huge integer"), ("ASCII digits", "non-ASCII digits"),
+                        ("integer beyond", "huge integer"), ("ASCII digits", "bad digits"),
                         (" outside ", "out of range"), ("must be a number", "not a number"),
                         ("missing", "missing field"), ("must be one of", "bad choice"), ("empty (", "empty list"),
                         ("is not ISO 8601", "bad time"), ("must be UTC", "bad time"),
