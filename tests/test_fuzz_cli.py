@@ -19,7 +19,7 @@ import subprocess
 import sys
 
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import HealthCheck, given, settings, strategies as st
 
 import fuzz_sessions as fz
 from engine import limits
@@ -36,7 +36,8 @@ def workdir(tmp_path_factory):
 
 @pytest.mark.parametrize("command", fz.COMMANDS)
 def test_fuzz_command(command, workdir):
-    @settings(max_examples=EXAMPLES_PER_COMMAND, deadline=None, derandomize=True, database=None)
+    @settings(max_examples=EXAMPLES_PER_COMMAND, deadline=None, derandomize=True, database=None,
+              suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
     @given(st.data())
     def one(data):
         name, seed = data.draw(st.sampled_from(fz.SEEDS), label="seed")
