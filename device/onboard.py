@@ -46,6 +46,9 @@ class OnboardError(ValueError):
 
 
 def _load_json(data, what):
+    from engine.limits import MAX_FILE_BYTES, MAX_DEPTH
+    if isinstance(data, (bytes, bytearray, str)) and len(data) > MAX_FILE_BYTES:
+        raise OnboardError("%s: %d bytes; at most %d" % (what, len(data), MAX_FILE_BYTES))
     if isinstance(data, (bytes, bytearray)):
         try:
             data = bytes(data).decode("utf-8")
@@ -53,6 +56,8 @@ def _load_json(data, what):
             raise OnboardError("%s: not UTF-8 text" % what)
     try:
         return json.loads(data)
+    except RuntimeError:      # nested too deep for the decoder (CPython's RecursionError)
+        raise OnboardError("%s: nested deeper than %d levels" % (what, MAX_DEPTH))
     except ValueError:
         raise OnboardError("%s: not JSON" % what)
 

@@ -75,7 +75,7 @@ def calibrate_session(session, alm=None, instrument=None, delay="auto", sigma_ti
             raise CalibrationError("track.known: the session's track is not marked known "
                                    "(calibration needs the true position)")
         warnings.append("track not marked known: calibrating against the DR")
-    contacts = [c for c in session.contacts if not c.void]
+    contacts = [c for c in session.contacts if not c.void and getattr(c, "dup_of", None) is None]
     unlabelled = [c for c in contacts if c.image is None]
     if unlabelled:
         _label_at_known_position(session, alm, unlabelled, warnings)

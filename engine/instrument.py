@@ -480,20 +480,23 @@ def from_ladder(lad, name="", include_faint=False):
                                         "shade_od": lad.shade_od}})
 
 
-def _num(v, path, lo=None, hi=None, allow_none=False):
+def _num(v, path, lo, hi, allow_none=False):
     if v is None and allow_none:
         return None
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or v != v:
-        raise InstrumentError("%s: expected a number, got %r" % (path, v))
-    if (lo is not None and v < lo) or (hi is not None and v > hi):
-        raise InstrumentError("%s: %r not within %r..%r" % (path, v, lo, hi))
-    return float(v)
+    from engine.limits import number
+    return number(v, path, lo, hi, InstrumentError)
 
 
 def parse_images(items, path="images"):
     """Validate a list of image objects (instrument file or session ``instrument.images``)."""
+    from engine import limits
     if not isinstance(items, list) or not items:
         raise InstrumentError("%s: expected a non-empty list of images" % path)
+    if len(items) > limits.MAX_IMAGES:
+        raise InstrumentError("%s: %d images; at most %d" % (path, len(items), limits.MAX_IMAGES))
+    dev_lo, dev_hi = limits.RANGES["instrument_deviation_deg"]
+    sig_lo, sig_hi = limits.RANGES["sigma_arcmin"]
+    coef_lo, coef_hi = limits.RANGES["coef"]
     out = []
     seen = set()
     for k, it in enumerate(items):
@@ -502,17 +505,18 @@ def parse_images(items, path="images"):
             raise InstrumentError("%s: expected an object" % p)
         iid = it.get("id")
         if not isinstance(iid, str) or not iid:
-            raise InstrumentError("%s.id: expected a non-empty string, got %r" % (p, iid))
+            raise InstrumentError("%s.id: expected a non-empty string, got %s" % (p, limits.show(iid)))
+        limits.text(iid, p + ".id", InstrumentError, limits.MAX_ID_CHARS)
         if iid in seen:
             raise InstrumentError("%s.id: duplicate image id %r" % (p, iid))
         seen.add(iid)
         if "deviation_deg" not in it:
             raise InstrumentError("%s.deviation_deg: missing" % p)
-        dev = _num(it["deviation_deg"], p + ".deviation_deg", 0.0, 90.0)
-        sig = _num(it.get("sigma_arcmin"), p + ".sigma_arcmin", 0.0, 600.0, allow_none=True)
+        dev = _num(it["deviation_deg"], p + ".deviation_deg", dev_lo, dev_hi)
+        sig = _num(it.get("sigma_arcmin"), p + ".sigma_arcmin", sig_lo, sig_hi, allow_none=True)
         src = it.get("source", "nominal")
         if src not in ("nominal", "calibrated"):
-            raise InstrumentError("%s.source: %r is neither \"nominal\" nor \"calibrated\"" % (p, src))
+            raise InstrumentError("%s.source: %s is neither \"nominal\" nor \"calibrated\"" % (p, limits.show(src)))
         cal = it.get("calibrated_utc")
         if cal is not None:
             from engine.timescale import parse_utc
@@ -522,9 +526,11 @@ def parse_images(items, path="images"):
                 raise InstrumentError("%s.calibrated_utc: %s" % (p, exc))
         coef = it.get("coef")
         if coef is not None:
-            if (not isinstance(coef, list) or not coef
-                    or not all(isinstance(c, int) and not isinstance(c, bool) and c >= 0 for c in coef)):
-                raise InstrumentError("%s.coef: expected a list of non-negative integers, got %r" % (p, coef))
+            if (not isinstance(coef, list) or not 1 <= len(coef) <= limits.MAX_PLATES
+                    or not all(isinstance(c, int) and not isinstance(c, bool) and coef_lo <= c <= coef_hi
+                               for c in coef)):
+                raise InstrumentError("%s.coef: expected a list of 1..%d integers within %d..%d, got %s"
+                                      % (p, limits.MAX_PLATES, coef_lo, coef_hi, limits.show(coef)))
         extra = {}
         for key in it:
             if key not in ("id", "deviation_deg", "sigma_arcmin", "source", "calibrated_utc", "coef"):
@@ -534,37 +540,34 @@ def parse_images(items, path="images"):
 
 
 def parse_instrument(text):
-    """Read a ``limbclock-instrument/1`` file (str, bytes or an already decoded dict)."""
+    """Read a ``limbclock-instrument/1`` file (str, bytes or an already decoded dict), within the
+    limits of ``engine.limits`` (size, nesting, counts, ranges).  Raises InstrumentError."""
+    from engine import limits
     if isinstance(text, dict):
         d = text
     else:
-        if isinstance(text, (bytes, bytearray)):
-            text = text.decode("utf-8")
-        try:
-            d = json.loads(text)
-        except ValueError as exc:
-            raise InstrumentError("instrument file: not valid JSON (%s)" % exc)
+        d = limits.load_json(text, "instrument file", InstrumentError)
     if not isinstance(d, dict):
         raise InstrumentError("instrument file: expected a JSON object")
+    limits.check_tree(d, InstrumentError)
     if d.get("format") != FORMAT:
-        raise InstrumentError("format: expected %r, got %r" % (FORMAT, d.get("format")))
+        raise InstrumentError("format: expected %r, got %s" % (FORMAT, limits.show(d.get("format"))))
     name = d.get("name", "")
     if not isinstance(name, str):
-        raise InstrumentError("name: expected a string, got %r" % (name,))
+        raise InstrumentError("name: expected a string, got %s" % limits.show(name))
     angles = d.get("plate_angles_deg")
     if angles is not None:
-        try:
-            angles = _check_angles(angles)
-        except InstrumentError as exc:
-            raise InstrumentError(str(exc))
+        angles = _check_angles(angles)
     images = parse_images(d.get("images"), "images")
     if angles is not None:
         for k, im in enumerate(images):
             if im.coef is not None and len(im.coef) != len(angles):
                 raise InstrumentError("images[%d].coef: %d entries for %d plate angles"
                                       % (k, len(im.coef), len(angles)))
-    delay = _num(d.get("reaction_delay_s"), "reaction_delay_s", -2.0, 2.0, allow_none=True)
-    delay_s = _num(d.get("reaction_delay_sigma_s"), "reaction_delay_sigma_s", 0.0, 10.0, allow_none=True)
+    lo, hi = limits.RANGES["reaction_delay_s"]
+    delay = _num(d.get("reaction_delay_s"), "reaction_delay_s", lo, hi, allow_none=True)
+    lo, hi = limits.RANGES["reaction_delay_sigma_s"]
+    delay_s = _num(d.get("reaction_delay_sigma_s"), "reaction_delay_sigma_s", lo, hi, allow_none=True)
     extra = {}
     for key in d:
         if key not in ("format", "name", "plate_angles_deg", "images", "reaction_delay_s", "reaction_delay_sigma_s"):

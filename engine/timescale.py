@@ -93,12 +93,22 @@ LEAP_SECONDS = (
 
 # The first UTC day the table is no longer known good: 2027-07-01 (day 21000).
 _EXTRAPOLATED_FROM_DAY = days_from_civil(2027, 7, 1)
+MAX_TIME_CHARS = 40        # longest time text parse_utc reads (engine.limits.MAX_TIME_CHARS)
 
 
 def _digits(s, what):
-    if not s or not s.isdigit():
+    """ASCII digits only: str.isdigit() and int() also take other scripts' digits (Devanagari,
+    Arabic-Indic, fullwidth...), which are not ISO 8601."""
+    if not s:
         raise TimeError("bad %s %r" % (what, s))
+    for ch in s:
+        if not "0" <= ch <= "9":
+            raise TimeError("bad %s %r: ASCII digits 0-9 only" % (what, s))
     return int(s)
+
+
+def _shown(text):
+    return repr(text) if len(text) <= MAX_TIME_CHARS else repr(text[:MAX_TIME_CHARS]) + "..."
 
 
 def parse_utc(text):
@@ -109,8 +119,11 @@ def parse_utc(text):
     a microsecond are rounded.  Raises ``TimeError`` with the reason.
     """
     if not isinstance(text, str):
-        raise TimeError("time must be a string like 2029-08-03T06:41:12.250Z, got %r" % (text,))
-    s = text.strip()
+        raise TimeError("time must be a string like 2029-08-03T06:41:12.250Z, got %s" % type(text).__name__)
+    if len(text) > MAX_TIME_CHARS:
+        raise TimeError("time %s is %d characters long; ISO 8601 UTC takes at most %d"
+                        % (_shown(text), len(text), MAX_TIME_CHARS))
+    s = text.strip(" \t\r\n")       # ASCII white space only
     if s.endswith("Z") or s.endswith("z"):
         s = s[:-1]
     elif s.endswith("+00:00"):

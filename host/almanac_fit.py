@@ -31,6 +31,7 @@ import numpy as np
 from engine import almanac as alm
 from engine.constants import US_PER_DAY
 from engine.timescale import days_from_civil
+from host.errors import UserError
 from vectors import reference
 
 MARGIN_DAYS = 2
@@ -195,9 +196,9 @@ def fit_year(year):
 def fit_years(first_year, last_year, out_dir, progress=print):
     """Fit and write ``out_dir/YYYY.lca`` for each year; returns {year: (bytes, report)}."""
     if first_year > last_year:
-        raise ValueError("first year %d is after last year %d" % (first_year, last_year))
+        raise UserError("first year %d is after last year %d" % (first_year, last_year))
     if first_year < 1973 or last_year > 2052:
-        raise ValueError("years must lie within 1973..2052 (the leap-second table starts in 1972; "
+        raise UserError("years must lie within 1973..2052 (the leap-second table starts in 1972; "
                          "DE421 ends on 2053-10-09)")
     os.makedirs(out_dir, exist_ok=True)
     results = {}

@@ -4,6 +4,7 @@ import json
 from engine import calibrate
 from host.cautions import CAUTION_TEXT
 from host.errors import UserError
+from host.inputs import option, read_file
 
 
 def register(sub):
@@ -27,13 +28,11 @@ def run(args):
     from engine import almanac
     from engine.session import parse_session
     alm = almanac.load()
-    with open(args.session, "rb") as f:
-        session = parse_session(f.read(), alm)
+    session = parse_session(read_file(args.session, "session"), alm)
     inst = None
     if args.instrument:
         from engine.instrument import parse_instrument
-        with open(args.instrument, "rb") as f:
-            inst = parse_instrument(f.read())
+        inst = parse_instrument(read_file(args.instrument, "instrument"))
     if args.delay == "auto":
         delay = "auto"
     else:
@@ -41,9 +40,12 @@ def run(args):
             delay = float(args.delay)
         except ValueError:
             raise UserError("--delay: %r is neither 'auto' nor a number of seconds" % args.delay)
-    if not 0.0 < args.time_sigma <= 5.0:
-        raise UserError("--time-sigma: %r not within 0..5 s" % args.time_sigma)
-    result = calibrate.calibrate_session(session, alm, inst, delay, args.time_sigma)
+        delay = option(delay, "--delay", "reaction_delay_s")
+    time_sigma = option(args.time_sigma, "--time-sigma", lo=0.0, hi=5.0)
+    if time_sigma == 0.0:
+        raise UserError("--time-sigma: must be > 0 s")
+    result = calibrate.calibrate_session(session, alm, inst, delay, time_sigma)
+    result["warnings"] = list(session.warnings) + result["warnings"]
     if args.write:
         out = calibrate.calibrated_instrument(result, session, inst, args.name)
         with open(args.write, "w") as f:

@@ -5,6 +5,7 @@ from engine import plan, timescale
 from engine.model import Observer, Track
 from host.cautions import CAUTION_LINES, CAUTION_TEXT
 from host.errors import UserError
+from host.inputs import option, read_file
 
 HOURS_DEFAULT = 24
 
@@ -66,30 +67,29 @@ def _inputs(args):
     alm = almanac.load()
     t_from = timescale.parse_utc(args.t_from)
     t_to = timescale.parse_utc(args.t_to) if args.t_to else t_from + HOURS_DEFAULT * 3600 * 1000000
+    option(args.min_deviation, "--min-deviation", lo=0.0, hi=90.0)
     notes = []
     if args.session:
         if args.lat is not None or args.lon is not None or args.instrument:
             raise UserError("give either a SESSION or --lat/--lon/--instrument, not both")
         from engine.session import parse_session
-        with open(args.session, "rb") as f:
-            s = parse_session(f.read(), need_contacts=False)
+        s = parse_session(read_file(args.session, "session"), need_contacts=False)
         images, track, observer = s.images, s.track, s.observer
     else:
         if args.lat is None or args.lon is None or not args.instrument:
             raise UserError("without a SESSION, --lat, --lon and --instrument are required")
-        if not -89.0 <= args.lat <= 89.0:
-            raise UserError("--lat: %r not within -89..89" % args.lat)
-        if not -180.0 <= args.lon <= 180.0:
-            raise UserError("--lon: %r not within -180..180" % args.lon)
-        if not 0.0 <= args.speed <= 60.0:
-            raise UserError("--speed: %r not within 0..60 kn" % args.speed)
+        lat = option(args.lat, "--lat", "lat_deg")
+        lon = option(args.lon, "--lon", lo=-180.0, hi=180.0)
+        course = option(args.course, "--course", "course_deg")
+        speed = option(args.speed, "--speed", "speed_kn")
+        observer = Observer(option(args.eye_height, "--eye-height", "eye_height_m"),
+                            option(args.temperature, "--temperature", "temperature_c"),
+                            option(args.pressure, "--pressure", "pressure_hpa"))
         from engine.instrument import parse_instrument
-        with open(args.instrument, "rb") as f:
-            inst = parse_instrument(f.read())
+        inst = parse_instrument(read_file(args.instrument, "instrument"))
         images = inst.image_tuples()
         t0 = timescale.parse_utc(args.at) if args.at else t_from
-        track = Track(t0, args.lat, args.lon, args.course % 360.0, args.speed)
-        observer = Observer(args.eye_height, args.temperature, args.pressure)
+        track = Track(t0, lat, lon, course % 360.0, speed)
         notes.append("observer: eye %.1f m, %.0f C, %.0f hPa (defaults 2.0 m, 10 C, 1010 hPa unless given)"
                      % (observer.eye_height_m, observer.temperature_c, observer.pressure_hpa))
     return alm, images, track, observer, t_from, t_to, notes

@@ -60,7 +60,8 @@ def _figure(w_in, h_in):
 def _save(fig, path):
     low = path.lower()
     if not (low.endswith(".png") or low.endswith(".svg")):
-        raise ValueError("plot file %r: the name must end in .png or .svg" % path)
+        from host.errors import UserError
+        raise UserError("plot file %r: the name must end in .png or .svg" % path)
     fig.savefig(path, format="svg" if low.endswith(".svg") else "png")
     return path
 

@@ -288,7 +288,7 @@ def test_instrument_round_trip_any(images):
 @pytest.mark.parametrize("mutate,msg", [
     (lambda d: d.update(format="other/1"), "format"),
     (lambda d: d["images"][1].pop("deviation_deg"), "images[1].deviation_deg: missing"),
-    (lambda d: d["images"][0].update(deviation_deg="5"), "images[0].deviation_deg: expected a number"),
+    (lambda d: d["images"][0].update(deviation_deg="5"), "images[0].deviation_deg: must be a number"),
     (lambda d: d["images"][2].update(id="i01"), "images[2].id: duplicate"),
     (lambda d: d["images"][0].update(source="guess"), "images[0].source"),
     (lambda d: d["images"][0].update(coef=[1]), "images[0].coef: 1 entries for 2 plate angles"),
