@@ -144,13 +144,13 @@ def check(seconds=5, profile_path=PROFILE_FILE):
         out["gps"] = st["gps"]
         out["log"] = {"last_seq": st["log"]["last_seq"], "free_records": st["log"]["free_records"]}
         out["display"] = st["display"]
+        st = None
+        gc.collect()
+        out["mem_free"] = gc.mem_free()          # with the firmware built and running, as at boot
+        out["mem_alloc"] = gc.mem_alloc()
         from engine import almanac
         alm = almanac.load(prof.get("almanac_dir", ALMANAC_DIR), 1)
         out["almanac"] = [alm.first_year, alm.last_year]
-        fw = hw = alm = None
     except Exception as e:      # reported, not raised: the host prints it as the check's finding
         out["error"] = "%s: %s" % (type(e).__name__, e)
-    gc.collect()
-    out["mem_free"] = gc.mem_free()
-    out["mem_alloc"] = gc.mem_alloc()
     print("LCCHECK " + json.dumps(out))

@@ -175,6 +175,7 @@ class MicroPythonTimer(VirtualTimer):
         self.command = list(command)
         self.screen = screen
         self.remote = None
+        self.final = None
         self._tmp = None
         if not kw.get("state_dir"):
             self._tmp = tempfile.mkdtemp(prefix="limbclock-mpsim-")
@@ -266,6 +267,7 @@ class MicroPythonTimer(VirtualTimer):
         except OSError:
             pass
         self.remote = None
+        self.final = final
         if self._tmp:
             import shutil
             shutil.rmtree(self._tmp, ignore_errors=True)
