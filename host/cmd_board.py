@@ -290,6 +290,9 @@ def _call(cmd, what, timeout=120):
 
 
 def _no_micropython(port, detail):
+    if "failed to access" in detail or "no device found" in detail:
+        return UserError("cannot open %s (%s): is the board plugged in, and the port free?"
+                         % (port, detail.strip().splitlines()[-1]))
     return UserError("no MicroPython prompt on %s (%s): flash MicroPython first; if limbclock already runs "
                      "there, hold the button while resetting the board to reach the prompt"
                      % (port, detail.strip().splitlines()[-1] if detail.strip() else "no answer"))
