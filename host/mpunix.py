@@ -12,7 +12,7 @@ import sys
 
 from host.errors import UserError
 
-DEFAULT_HEAP_KB = 256
+DEFAULT_HEAP_KB = 512
 
 
 def available():
