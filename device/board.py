@@ -182,7 +182,10 @@ class Board(Hardware):
             return b""
         buf = b""
         while len(buf) < 256 and self._poll.poll(0):      # what has arrived, without blocking
-            buf += self._in.read(1) or b""
+            b = self._in.read(1)
+            if not b:                    # end of input (a closed pipe): nothing more will come
+                break
+            buf += b
         return buf
 
     def host_write(self, data):
