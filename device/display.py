@@ -19,7 +19,12 @@ example" for the charge pump).
 """
 import binascii
 
-import framebuf
+try:
+    import framebuf
+    _FrameBuffer = framebuf.FrameBuffer
+except ImportError:                      # CPython: the module imports, an Oled cannot be built
+    framebuf = None
+    _FrameBuffer = object
 
 # Section 9 of the datasheet: fundamental, addressing, hardware configuration and timing commands.
 SET_CONTRAST = 0x81          # + 1 byte, 0..255
@@ -94,11 +99,13 @@ class SPIBus:
         self._send(1, buf)
 
 
-class Oled(framebuf.FrameBuffer):
+class Oled(_FrameBuffer):
     """The screen as a ``FrameBuffer`` (``text``, ``fill_rect``, ``pixel``...) plus ``show()``,
     ``power(on)`` and ``contrast(level)``; ``flip`` turns the picture by 180 degrees."""
 
     def __init__(self, bus, width=128, height=64, flip=False, external_vcc=False):
+        if framebuf is None:
+            raise OSError("device.display needs MicroPython's framebuf module")
         self.bus = bus
         self.width = width
         self.height = height
