@@ -88,6 +88,7 @@ def run(fw, hw):
         except Exception as e:   # a fault in one pass must not stop the timer: count it, go on
             faults += 1
             fw.message = "fault: %s" % type(e).__name__
+            fw.dirty = True
             if faults >= MAX_FAULTS:
                 raise
         if faults < MAX_FAULTS:

@@ -156,6 +156,72 @@ def _lccheck(out):
     return json.loads(lines[-1][8:])
 
 
+def test_board_parts_under_micropython(tmp_path):
+    """The buzzer's pattern is a schedule that ``idle()`` plays (a beep never sleeps in the loop); the
+    OLED sends only the pages that changed."""
+    need_unix_port()
+    tree = tmp_path / "t"
+    cmd_board.build(cmd_board.load_profile("pico"), str(tree), "mpy")
+    code = ("import time, json, device.main\nfrom device.board import Board\n"
+            "b = Board.from_profile(device.main.load_profile(), 'lc', link=False)\n"
+            "t0 = time.ticks_ms()\nb.buzz('.-')\nplan = [(time.ticks_diff(t, t0), d) for t, d in b._beeps]\n"
+            "while b._beeps:\n    b.idle()\n"
+            "h = [(time.ticks_diff(t, t0), d) for t, d in b.buzzer.history]\n"
+            "lines = ['LOCKED +-31us', '08:19:28 UTC', 'S1 SUN LL #-', 'ready', 'NEXT i01 SUN LL rise', 'in 24:27 Zn 128']\n"
+            "b.show(lines); first = b.display.show()\n"
+            "b.show(lines); again = b.display.show()\n"
+            "from device import screens\nscreens.draw(b.display, lines[:5] + ['in 24:26 Zn 128']); tick = b.display.show()\n"
+            "print('RES', json.dumps([plan, h, first, again, tick]))\n")
+    p = _run_in_tree(tree, code)
+    plan, h, first, again, tick = json.loads(p.stdout.split("RES", 1)[1])
+    start = plan[0][0]
+    # '.' 40 ms on, 40 ms gap, '-' 200 ms on; queued by buzz(), switched by idle() when due, never early
+    assert [(t - start, d) for t, d in plan] == [(0, 32768), (40, 0), (80, 32768), (280, 0)]
+    assert [d for _, d in h] == [32768, 0, 32768, 0]
+    assert all(ht >= pt for (ht, _), (pt, _) in zip(h, plan))
+    assert first == 0 and again == 0                 # show() inside Board.show already sent everything
+    assert 1 <= tick <= 4                             # one second less: the pages of the last digit only
+
+
+def test_main_loop_counts_faults_and_keeps_going():
+    from device import main
+
+    class HW:
+        fed = 0
+        passes = 0
+
+        def idle(self):
+            self.passes += 1
+
+        def running(self):
+            return self.passes <= 30
+
+        def feed_watchdog(self):
+            self.fed += 1
+
+    class FW:
+        polls = 0
+        message = ""
+        dirty = False
+
+        def poll(self):
+            self.polls += 1
+            if self.polls % 3 == 0:
+                raise ZeroDivisionError("one bad pass")
+
+    hw, fw = HW(), FW()
+    main.run(fw, hw)
+    assert fw.polls == 30 and hw.fed == 30 and fw.message == "fault: ZeroDivisionError"
+
+    class Stuck(FW):
+        def poll(self):
+            raise KeyError("always")
+    hw = HW()
+    with pytest.raises(KeyError):
+        main.run(Stuck(), hw)
+    assert hw.fed == main.MAX_FAULTS - 1             # the watchdog is starved: the board resets
+
+
 # -- the console -----------------------------------------------------------------------------------
 def _sigint_caught(pid):
     with open("/proc/%d/status" % pid) as f:

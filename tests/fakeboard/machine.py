@@ -54,10 +54,13 @@ class I2C:
 class PWM:
     def __init__(self, pin, freq=1000, duty_u16=0):
         self.duty = duty_u16
+        self.history = []           # (ticks_ms, duty) of every change
 
     def duty_u16(self, v=None):
         if v is not None:
+            import time
             self.duty = v
+            self.history.append((time.ticks_ms(), v))
         return self.duty
 
 
