@@ -20,7 +20,9 @@ The board's ``/main.py`` (written by ``limbclock board build``) is two lines::
    data, not Ctrl-C; given back if the loop ever ends;
 4. runs the loop: ``poll()``, feed the watchdog, ``idle()``.  An exception out of a pass is
    counted and the loop goes on (after 20 in a row it stops and lets the watchdog reset the
-   board); the watchdog is fed by the loop only, so a pass stuck for ``watchdog_ms`` resets it.
+   board).  The watchdog is fed by the loop, and during a long computation by the engine's
+   cooperative hook (``engine.coop``: each evaluation of the forward model), unless the firmware
+   core installs a hook of its own; a pass stuck elsewhere for ``watchdog_ms`` resets the board.
 
 ``check(seconds)`` is what ``limbclock board check`` runs through ``mpremote``: the firmware for
 a few seconds without the host link and without a watchdog, then one JSON line with versions,
@@ -113,6 +115,10 @@ def start(profile_path=PROFILE_FILE):
     fw = make_firmware(hw, prof)
     for f in hw.faults:
         fw.message = f[:40]
+    from engine import coop
+    prev = coop.set_hook(hw.feed_watchdog)     # a long reduction feeds the watchdog at each step
+    if prev is not None:                       # the firmware core has its own hook: it stays
+        coop.set_hook(prev)
     Board.own_console(True)
     try:
         run(fw, hw)

@@ -289,11 +289,15 @@ def _call(cmd, what, timeout=120):
     return p
 
 
+class NoPrompt(UserError):
+    """The port answers mpremote with no MicroPython prompt (none there, or the timer owns the console)."""
+
+
 def _no_micropython(port, detail):
     if "failed to access" in detail or "no device found" in detail:
         return UserError("cannot open %s (%s): is the board plugged in, and the port free?"
                          % (port, detail.strip().splitlines()[-1]))
-    return UserError("no MicroPython prompt on %s (%s): flash MicroPython first; if limbclock already runs "
+    return NoPrompt("no MicroPython prompt on %s (%s): flash MicroPython first; if limbclock already runs "
                      "there, hold the button while resetting the board to reach the prompt"
                      % (port, detail.strip().splitlines()[-1] if detail.strip() else "no answer"))
 
@@ -383,8 +387,49 @@ def run_install(args):
     return 0
 
 
+def _link_status(port):
+    """(hello, status) from a timer whose firmware runs and owns the console, or None."""
+    from host.timer_client import TimerClient, TimerError
+    try:
+        with TimerClient(port, timeout=0.5, retries=2) as c:
+            return c.handshake(), c.status()
+    except (TimerError, ValueError):
+        return None
+
+
+def _report_running(args, hello, st):
+    clock = st.get("clock") or {}
+    gps = st.get("gps") or {}
+    rep = {"via": "link", "device_id": hello.get("device_id"), "firmware": hello.get("firmware"),
+           "protocol": hello.get("protocol"), "clock": clock, "gps": gps, "log": st.get("log"),
+           "display": st.get("display"), "mem_free": None, "almanac": None, "engine": None}
+    if args.json:
+        print(json.dumps(rep))
+        return 0
+    print("timer %s on %s is running: firmware %s, protocol %s (answered on its link)" % (
+        rep["device_id"], args.port, rep["firmware"], rep["protocol"]))
+    unc = clock.get("uncertainty_us")
+    print("  clock %s%s; GPS sentences good %s, bad %s" % (
+        clock.get("state"), "" if unc is None or unc >= 0xFFFFFFFF else " +-%d us" % unc, gps.get("good"),
+        gps.get("bad_checksum")))
+    log = st.get("log") or {}
+    print("  log: last record %s, %s records free" % (log.get("last_seq"), log.get("free_records")))
+    print("  engine version, free heap and almanac span: hold the button while resetting the board "
+          "(the prompt), then check again")
+    for line in CAUTION_LINES:
+        print(line)
+    return 0
+
+
 def run_check(args):
-    probe(args)
+    try:
+        probe(args)
+    except NoPrompt:
+        # no prompt: the timer's firmware may own the console; ask it on its own link
+        got = _link_status(args.port)
+        if got is None:
+            raise
+        return _report_running(args, *got)
     code = "import device.main\ndevice.main.check(%r)\n" % float(args.seconds)
     p = _call(_mpremote(args) + ["connect", args.port, "exec", code], "checking %s" % args.port,
               60 + int(args.seconds))
@@ -398,6 +443,7 @@ def run_check(args):
             raise UserError("%s has MicroPython but not the limbclock firmware (%s): limbclock board install"
                             % (args.port, tail))
         raise UserError("checking %s failed: %s" % (args.port, tail))
+    rep["via"] = "prompt"
     if args.json:
         print(json.dumps(rep))
         return 0 if "error" not in rep else 2
@@ -417,6 +463,7 @@ def run_check(args):
         print("  no GPS time yet: check the antenna's view of the sky, the GPS TX -> board RX wire and the PPS wire")
     for f in rep.get("faults") or []:
         print("  part not answering: %s" % f)
+    print("  the board is at its prompt: reset it to start the timer")
     for line in CAUTION_LINES:
         print(line)
     return 0

@@ -251,8 +251,10 @@ def test_the_link_owns_the_console_while_the_firmware_runs(tmp_path):
     tree = tmp_path / "t"
     cmd_board.build(cmd_board.load_profile("pico"), str(tree), "mpy")
     code = ("import sys, time, device.main\n"
+            "from engine import coop\n"
             "def run(fw, hw):\n"
-            "    print('LOOP', fw.device_id); sys.stdout.flush() if hasattr(sys.stdout, 'flush') else None\n"
+            "    fed = hw.wdt.fed; coop.tick(); coop.tick()\n"
+            "    print('LOOP', fw.device_id, hw.wdt.fed - fed)\n"
             "    time.sleep(1.5)\n"
             "device.main.run = run\n"
             "device.main.start()\n"
@@ -263,7 +265,8 @@ def test_the_link_owns_the_console_while_the_firmware_runs(tmp_path):
     proc = subprocess.Popen([sys.executable, "-c", "import sys, micropython_unix; sys.exit(micropython_unix.run_main(sys.argv))",
                              str(tree / "_c.py")], cwd=tree, env=e, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
-        assert proc.stdout.readline().startswith("LOOP LC-")
+        loop = proc.stdout.readline().split()
+        assert loop[:2] == ["LOOP", "LC-133B2D2F"] and loop[2] == "2"      # the engine's hook feeds the watchdog
         during = _sigint_caught(proc.pid)
         assert proc.stdout.readline().strip() == "BACK"
         after = _sigint_caught(proc.pid)
@@ -323,10 +326,10 @@ def test_install_copies_the_tree_and_the_device_id(tmp_path):
     assert p.returncode == 0, p.stderr
     assert "timer LC-133B2D2F on /dev/ttyACM7: firmware 0.1.0, protocol 1, engine 0.1.0" in p.stdout
     assert "almanac %d-%d" % (YEARS[0], YEARS[-1]) in p.stdout and "clock none" in p.stdout
-    assert "free heap" in p.stdout and "no GPS time yet" in p.stdout
+    assert "free heap" in p.stdout and "no GPS time yet" in p.stdout and "reset it to start the timer" in p.stdout
     p = cli("board", "check", "--port", "/dev/ttyACM7", "--seconds", "0.2", "--json", env=env)
     rep = json.loads(p.stdout)
-    assert rep["mem_free"] > 0 and rep["mem_alloc"] > 0 and rep["profile"] == "pico"
+    assert rep["mem_free"] > 0 and rep["mem_alloc"] > 0 and rep["profile"] == "pico" and rep["via"] == "prompt"
 
 
 @pytest.mark.parametrize("board, profile, message", [
@@ -344,6 +347,28 @@ def test_install_refuses_the_wrong_board_with_one_clear_line(tmp_path, board, pr
     assert p.returncode == 2
     assert len(p.stderr.strip().splitlines()) == 1 and message in p.stderr, p.stderr
     assert not (d / "fs").exists() or not os.listdir(d / "fs")       # nothing copied
+
+
+def test_check_a_running_timer_on_its_link(tmp_path):
+    """After install the board resets into the timer, which owns the console: mpremote gets no prompt,
+    so check asks the timer on its own link (here the CPython virtual timer's pseudo-terminal)."""
+    from device.sim import VirtualTimer
+    from engine.timescale import parse_utc
+    t = parse_utc("2029-08-03T06:41:12.250Z")
+    vt = VirtualTimer(contacts=[(t, "sun", "lower")], device_id="LC-133B2D2F")
+    vt.run_contacts()
+    port = vt.start()
+    try:
+        d, env = fake(tmp_path, port=port, micropython=False)
+        p = cli("board", "check", "--port", port, env=env)
+        assert p.returncode == 0, p.stderr
+        assert "timer LC-133B2D2F on %s is running: firmware 0.1.0, protocol 1" % port in p.stdout
+        assert "clock locked +-3" in p.stdout and "last record 1" in p.stdout
+        assert "hold the button while resetting the board" in p.stdout
+        rep = json.loads(cli("board", "check", "--port", port, "--json", env=env).stdout)
+        assert rep["via"] == "link" and rep["clock"]["state"] == "locked" and rep["mem_free"] is None
+    finally:
+        vt.stop()
 
 
 def test_check_on_a_board_without_the_firmware(tmp_path):
