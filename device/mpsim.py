@@ -168,10 +168,11 @@ class MicroPythonTimer(VirtualTimer):
     tree built for the ``sim`` profile; ``command`` the argv that starts the port with its heap
     (``host.mpunix.command``) before the script path."""
 
-    def __init__(self, tree, command, screen=True, **kw):
+    def __init__(self, tree, command, screen=True, remove_tree=False, **kw):
         if kw.get("power_cut_at_us") is not None or kw.get("power_cut_after_bytes") is not None:
             raise SimError("power cuts are not simulated with --micropython")
         self.tree = tree
+        self.remove_tree = remove_tree
         self.command = list(command)
         self.screen = screen
         self.remote = None
@@ -196,7 +197,9 @@ class MicroPythonTimer(VirtualTimer):
         try:
             proc = subprocess.Popen(self.command + [os.path.join(self.tree, "main.py")], cwd=self.tree, env=env,
                                     stdin=h_r, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                                    pass_fds=(w_r, a_w))
+                                    pass_fds=(w_r, a_w), start_new_session=True)
+            # its own session: a Ctrl-C at the terminal stops the virtual timer, which then ends the
+            # MicroPython side itself (Q, or the end of the world pipe if this process dies)
         finally:
             for fd in (w_r, a_w, h_r):
                 os.close(fd)
@@ -268,7 +271,8 @@ class MicroPythonTimer(VirtualTimer):
             pass
         self.remote = None
         self.final = final
-        if self._tmp:
-            import shutil
-            shutil.rmtree(self._tmp, ignore_errors=True)
+        import shutil
+        for d in (self._tmp, self.tree if self.remove_tree else None):
+            if d:
+                shutil.rmtree(d, ignore_errors=True)
         return final

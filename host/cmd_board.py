@@ -41,7 +41,7 @@ def register(sub):
     bsub = p.add_subparsers(dest="board_command", metavar="ACTION")
     b = bsub.add_parser("build", help="write the board's file tree (code, almanac years, profile, main.py)")
     _profile_args(b)
-    b.add_argument("--out", required=True, metavar="DIR", help="directory to write (emptied first)")
+    b.add_argument("--out", required=True, metavar="DIR", help="directory to write (new, empty, or an earlier board tree, which is replaced)")
     b.add_argument("--json", action="store_true", help="machine-readable summary")
     b.set_defaults(func=run_build)
     i = bsub.add_parser("install", help="build and copy the tree to a board with mpremote")
@@ -192,7 +192,10 @@ def build(prof, out, code="mpy", years=None, mpy_cross=None):
     if os.path.exists(out):
         if not os.path.isdir(out):
             raise UserError("--out %s exists and is not a directory" % out)
-        for name in os.listdir(out):
+        names = os.listdir(out)
+        if names and not ("board.json" in names and "main.py" in names):
+            raise UserError("--out %s is not empty and holds no board tree: give a new or empty directory" % out)
+        for name in names:
             p = os.path.join(out, name)
             shutil.rmtree(p) if os.path.isdir(p) and not os.path.islink(p) else os.remove(p)
     os.makedirs(out, exist_ok=True)

@@ -97,7 +97,7 @@ def _micropython_timer(args):
     command = mpunix.command(args.micropython or None, args.heap if args.heap is not None else DEFAULT_HEAP_KB)
     tree = args.tree or tempfile.mkdtemp(prefix="limbclock-sim-tree-")
     cmd_board.build(cmd_board.load_profile("sim"), tree, "mpy")
-    return functools.partial(MicroPythonTimer, tree, command), {}
+    return functools.partial(MicroPythonTimer, tree, command, remove_tree=not args.tree), {}
 
 
 def _summary(vt):

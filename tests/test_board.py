@@ -117,6 +117,10 @@ def test_build_writes_the_exact_tree(tmp_path):
     assert sorted(s["list"]) == sorted(["almanac/%d.lca" % y for y in range(2026, 2031)] + ["board.json", "main.py"])
     p = cli("board", "build", "--profile", "esp32", "--out", str(tmp_path / "fz"), "--years", "2020-2030")
     assert p.returncode == 2 and "--years" in p.stderr
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "notes.txt").write_text("keep me")
+    p = cli("board", "build", "--profile", "pico", "--out", str(tmp_path / "mine"))
+    assert p.returncode == 2 and "holds no board tree" in p.stderr and (tmp_path / "mine" / "notes.txt").exists()
 
 
 def test_mpy_tree_boots_under_micropython(tmp_path):
