@@ -6,8 +6,8 @@ next contact and its countdown, or the on-board fix and its ellipse.  ``layout(l
 turns them into drawing items for the 8 x 8 font of ``framebuf`` (16 columns x 8 rows, or
 bigger digits drawn 2 or 3 times the size): one of three screens,
 
-* ``countdown`` - the next contact and a large ``mm:ss`` (or ``3h05``) countdown, the
-  bearing to face, the clock state and the selected body/limb;
+* ``countdown`` - the clock state, UTC and the bearing to face (Zn), the next contact (image,
+  body, limb, rise/set) and a large ``mm:ss`` (or ``3h05``) countdown in 24-pixel digits;
 * ``fix``       - the on-board fix (latitude, longitude), its 95 % ellipse and its counts;
 * ``text``      - everything else (no time yet, no plan and why, the fix failed and why,
   the reduction running), the lines themselves wrapped to 16 columns.
