@@ -10,7 +10,7 @@ MP_DIR := tests/mp/node_modules/@micropython/micropython-webassembly-pyscript
 $(STAMP): pyproject.toml
 	$(PY) -m venv $(VENV)
 	$(VPY) -m pip install -q --upgrade pip
-	$(VPY) -m pip install -q -e '.[host,fit,test]'
+	$(VPY) -m pip install -q -e '.[host,fit,test,board]'
 	touch $(STAMP)
 
 venv: $(STAMP)

@@ -10,6 +10,8 @@ semi-diameter, parallax), ``sphere`` (altitude/azimuth, rhumb-line DR),
 blunders), ``instrument``, ``plan``, ``identify``, ``calibrate``.
 """
 
+VERSION = "0.1.0"               # reported by the timer (`limbclock board check`)
+
 
 def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=True):
     """Reduce a ``limbclock-session/1`` text to the ``limbclock-fix/1`` dict that

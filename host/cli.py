@@ -27,6 +27,7 @@ COMMANDS = (
     "host.cmd_sync",
     "host.cmd_archive",
     "host.cmd_sim",
+    "host.cmd_board",
     "host.cmd_doctor",
 )
 

