@@ -9,7 +9,7 @@ within 0.5 s are one contact timed twice: the later ones get ``dup_of`` and a wa
 
 A session holds the observer (height of eye, weather), the instrument's images
 (id and deviation), the ship's dead-reckoning track and the timed contacts;
-see DESIGN.md and DEVELOPERS.md ("Sight reduction") for the format.  Every
+see DEVELOPERS.md ("Session file limbclock-session/1", "Sight reduction") and docs/formats.md for the format.  Every
 problem raises ``SessionError`` whose message starts with the path of the field
 (``contacts[3].utc: ...``).  Keys this reader does not know are kept
 (``Session.extra`` at the top level, ``Contact.extra`` per contact) and written

@@ -2,7 +2,7 @@
 command line's entry point, in-process: the harness of ``tests/test_fuzz_cli.py`` (a bounded run
 in ``make test``) and of ``bench/bench_input.py`` (a longer run in ``make bench``).
 
-The contract checked (DESIGN.md "Trust rules", STYLE.md "Errors at the edges"): every input either
+The contract checked (DEVELOPERS.md "Trust rules": every input checked before arithmetic, errors at the edges as one line): every input either
 gives exit 0 with output that is valid JSON holding only finite numbers, or exit 2 with exactly
 ONE line on stderr (``limbclock CMD: error: ...``) and nothing on stdout.  Anything else - exit 70
 (``host.cli`` met an exception that is not one of the project's refusals), an exception escaping

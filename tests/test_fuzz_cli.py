@@ -2,8 +2,8 @@
 ``calibrate`` through ``host.cli.main`` (in-process), the cases of the issue that started it, and a
 few runs of the real process.
 
-The contract (DESIGN.md "Trust rules": every input is checked before arithmetic, a refusal is one
-line naming the field; STYLE.md "Errors at the edges"; exit status 2 for bad input is common
+The contract (DEVELOPERS.md "Trust rules": every input is checked before arithmetic, a refusal is one
+line naming the field, errors at the edges; exit status 2 for bad input is common
 practice, 70 is EX_SOFTWARE of sysexits.h): exit 0 with finite JSON, or exit 2 with exactly one
 line on stderr.  Only the project's own exception types (and OSError for files) are refusals
 (``host.cli.is_refusal``); a builtin ValueError such as "math domain error" is a crash (exit 70),

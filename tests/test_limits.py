@@ -2,7 +2,7 @@
 (session, instrument, track, times), repeated contacts, the command line's refusal/crash split,
 the same refusals under MicroPython, and docs/formats.md stating the limits the code enforces.
 
-References: DESIGN.md "Trust rules" (every input checked before arithmetic, one line naming the
+References: DEVELOPERS.md "Trust rules" (every input checked before arithmetic, one line naming the
 field); RFC 8259 section 6 (JSON numbers: NaN and Infinity are not JSON); ISO 8601 / RFC 3339
 section 5.6 (a date is written with the ASCII digits 0-9); ITU-R TF.460-6 (|DUT1| <= 0.9 s);
 sysexits.h EX_SOFTWARE = 70 (an internal software error) - common practice.
