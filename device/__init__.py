@@ -10,4 +10,4 @@ CPython only: ``simhw`` (simulated hardware) and ``sim`` (the virtual timer).
 """
 
 FIRMWARE_VERSION = "0.1.0"
-PROTOCOL_VERSION = 1
+PROTOCOL_VERSION = 2
