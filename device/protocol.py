@@ -64,7 +64,7 @@ class Refused(Exception):
     """A command the device answers with an ERROR frame."""
 
     def __init__(self, code, message):
-        Exception.__init__(self, message)
+        super().__init__(message)      # (MicroPython has no Exception.__init__ to call directly)
         self.code = code
         self.message = message
 

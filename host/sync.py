@@ -78,24 +78,27 @@ def _name(names, k, what):
 class TextProgress(object):
     """A one-line text progress bar on a stream (stderr), redrawn with a carriage return;
     ``link`` (optional) returns a short text on the link's state."""
-    __slots__ = ("stream", "total", "label", "width", "shown", "t0", "link")
+    __slots__ = ("stream", "total", "label", "width", "shown", "t0", "link", "last_len")
 
-    def __init__(self, total, label, stream=None, width=30, link=None):
+    def __init__(self, total, label, stream=None, width=30, link=None, t0=None):
         self.stream = stream if stream is not None else sys.stderr
         self.total = max(1, total)
         self.label = label
         self.width = width
         self.shown = False
-        self.t0 = time.monotonic()
+        self.t0 = time.monotonic() if t0 is None else t0
         self.link = link
+        self.last_len = 0
 
     def update(self, done):
         frac = min(1.0, done / float(self.total))
         n = int(round(frac * self.width))
-        rate = done / max(1e-6, time.monotonic() - self.t0)
+        rate = done / max(1e-3, time.monotonic() - self.t0)
         extra = self.link() if self.link is not None else ""
-        self.stream.write("\r%s [%s%s] %d/%d records, %.0f/s%s" % (self.label, "#" * n, "." * (self.width - n), done,
-                                                                   self.total, rate, extra))
+        line = "%s [%s%s] %d/%d records, %.0f/s%s" % (self.label, "#" * n, "." * (self.width - n), done, self.total,
+                                                     rate, extra)
+        self.stream.write("\r" + line + " " * max(0, self.last_len - len(line)))
+        self.last_len = len(line)
         self.stream.flush()
         self.shown = True
 
@@ -169,7 +172,7 @@ def sync(client, conn, progress=None, batch=None, stream=None, ack_every=ACK_EVE
                 last_stored = top
             s = top + 1
             if bar is None and show and (nxt - base >= PROGRESS_MIN_RECORDS or time.monotonic() - t0 > PROGRESS_AFTER_S):
-                bar = TextProgress(nxt - base, "sync %s" % device_id, stream, link=_link_text(client))
+                bar = TextProgress(nxt - base, "sync %s" % device_id, stream, link=_link_text(client), t0=t0)
             if bar is not None:
                 bar.total = max(1, nxt - base)
                 bar.update(s - base)

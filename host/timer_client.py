@@ -51,6 +51,7 @@ PATIENCE = 200                   # rounds in a row with bytes but no usable fram
 START_PART = 256                 # part size asked for at the handshake (grows on a clean link)
 MIN_PART = 12                    # the client never asks for smaller parts
 MIN_CHUNK = 16                   # smallest file chunk sent
+COPY_MAX_WIRE = 64               # parts longer than this on the wire are never sent twice
 TAIL_PARTS = 8                   # this few parts missing: the timer may send them more than once
 FRAME_OVERHEAD = 13              # wire bytes of a PART frame besides its data (header, CRC, COBS, 0x00)
 
@@ -330,7 +331,7 @@ class TimerClient:
             else:
                 # the timer answered, damaged or in part: ask for the parts still missing, in the size
                 # the link allows now (the whole answer when nothing of it arrived)
-                plen = self.target
+                plen = min(self.target, self.part_len)    # within one answer parts only shrink
                 copies = 1
                 if asm.total is not None:
                     first, bits, expect = asm.missing_cells(plen)
@@ -448,8 +449,9 @@ class TimerClient:
 
     def _copies(self, plen, missing):
         """How many times the timer should send each of the last ``missing`` parts: enough that
-        each arrives whole in a round with a chance of about 3 in 4, when few are missing."""
-        if missing > TAIL_PARTS:
+        each arrives whole in a round with a chance of about 3 in 4, when few are missing and the
+        parts are short (a copy then costs less line time than another round)."""
+        if missing > TAIL_PARTS or plen + FRAME_OVERHEAD > COPY_MAX_WIRE:
             return 1
         ok = (1.0 - self.error_rate()) ** (plen + FRAME_OVERHEAD)
         if ok >= 0.75:

@@ -453,8 +453,8 @@ def _bytes(path):
 
 def test_archive_fix_on_a_read_only_archive(tmp_path):
     """``archive fix`` on a read-only archive reduces the session (the same fix as ``limbclock fix`` on
-    the session file: vectors/sessions/morning_run.json, contacts from DE421 + ERFA) and says the fix
-    was not stored; the file is unchanged."""
+    the session file: vectors/sessions/morning_run.json, contacts from DE421 + ERFA), draws its plots
+    (PNG signature, ISO/IEC 15948 section 5.2) and says the fix was not stored; the file is unchanged."""
     with open(os.path.join(ROOT, "vectors", "sessions", "morning_run.json")) as f:
         doc = json.load(f)
     folder = tmp_path / "ro"
@@ -474,10 +474,14 @@ def test_archive_fix_on_a_read_only_archive(tmp_path):
     conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     conn.close()
     before = _bytes(path)
-    p = run_readonly("dir", str(folder), ["archive", "fix", "--db", path, "--session", str(sid), "--json"])
+    plots = str(tmp_path / "plots")
+    p = run_readonly("dir", str(folder), ["archive", "fix", "--db", path, "--session", str(sid), "--json",
+                                          "--plot", plots])
     assert p.returncode == 0, p.stderr
     got = json.loads(p.stdout)
     assert got["stored"] is False and got["fix_id"] is None
+    pngs = sorted(os.listdir(plots))
+    assert len(pngs) == 2 and all(_bytes(os.path.join(plots, f))[:8] == b"\x89PNG\r\n\x1a\n" for f in pngs)
     assert "read-only" in p.stderr and "not stored" in p.stderr
     ref = subprocess.run([sys.executable, "-m", "host", "fix", os.path.join(ROOT, "vectors", "sessions",
                                                                            "morning_run.json"), "--json"],

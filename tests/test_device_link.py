@@ -431,3 +431,71 @@ def test_busy_port_is_named():
     finally:
         os.close(m)
         os.close(s)
+
+
+MP_SCRIPT = r'''
+import json, struct
+from device import frame, hal, protocol as P, log
+from device.firmware import Firmware
+from engine.timescale import parse_utc
+
+T0 = parse_utc("2029-08-03T06:00:00Z")
+st = hal.FileStore(%(root)r)
+lg = log.Log(st, capacity=2000, id_source=lambda: 0x1234ABCD)
+for i in range(5):
+    lg.append(log.CONTACT, T0 + i * 1000003, 1, 30, i & 1, 0, 3, i)
+
+class HW(hal.Hardware):
+    store = st
+    t = 0
+    def ticks_us(self):
+        self.t = (self.t + 1000) %% hal.TICKS_PERIOD
+        return self.t
+
+fw = Firmware(HW(), device_id="LC-MP")
+out = {}
+
+def ask(ftype, seq, body):
+    frames = frame.Decoder().feed(fw.proto.feed(frame.encode(ftype, seq, body)))
+    if frames[0][0] != P.PART:
+        return frames[0][0], frames[0][2], 1
+    buf = bytearray(struct.unpack("<BHH", frames[0][2][:5])[1])
+    for f in frames:
+        rtype, total, off = struct.unpack("<BHH", f[2][:5])
+        buf[off:off + len(f[2]) - 5] = f[2][5:]
+    return rtype, bytes(buf), len(frames)
+
+rtype, body, n = ask(P.HELLO, 1, struct.pack("<BH", 2, 16))
+hello = json.loads(body)
+out["hello"] = [rtype, n, hello["protocol"], hello["log_id"], hello["base_seq"], hello["next_seq"]]
+rtype, body, n = ask(P.READ_LOG, 2, struct.pack("<IH", 1, 30))
+lid, base, nxt, cnt = struct.unpack("<IIII", body[:16])
+recs = [body[16 + 33 * k:49 + 33 * k] for k in range(cnt)]
+out["read"] = [rtype, n, lid, base, nxt, cnt]
+good = P.proof(recs[:3])
+rtype, body, n = ask(P.ACK, 3, struct.pack("<IIII", lid, 1, 3, good ^ 1))
+out["bad_proof"] = [rtype, body[0]]
+rtype, body, n = ask(P.ACK, 4, struct.pack("<IIII", lid, 1, 3, good))
+out["ack"] = [rtype] + list(struct.unpack("<IIII", body))
+out["held"] = [r.seq for r in fw.log.records()]
+print(json.dumps(out))
+'''
+
+
+def test_protocol_2_under_micropython_matches_cpython(tmp_path):
+    """The timer side of protocol 2 (split answers, READ_LOG with the log identity, ACK with proof)
+    runs under MicroPython with the results CPython gives."""
+    from mpy import run_micropython
+    mp = json.loads(run_micropython(MP_SCRIPT % {"root": "/lcp2"}, packages=("engine", "device")).strip()
+                    .splitlines()[-1])
+    import contextlib
+    import io
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        exec(compile(MP_SCRIPT % {"root": str(tmp_path / "lc")}, "p2", "exec"), {})
+    cp = json.loads(buf.getvalue().strip().splitlines()[-1])
+    assert mp == cp
+    assert mp["hello"][0] == P.HELLO | P.RESPONSE and mp["hello"][1] > 5 and mp["hello"][2:] == [2, 0x1234ABCD, 1, 6]
+    assert mp["read"] == [P.READ_LOG | P.RESPONSE, (16 + 5 * 33 + 15) // 16, 0x1234ABCD, 1, 6, 5]
+    assert mp["bad_proof"] == [P.ERROR, P.E_PROOF]
+    assert mp["ack"][0] == P.ACK | P.RESPONSE and mp["ack"][1:4] == [0x1234ABCD, 4, 6] and mp["held"] == [4, 5]

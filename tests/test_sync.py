@@ -83,16 +83,19 @@ def committed(db, device_id):
     return -1 if row is None else row[0]
 
 
-def test_sync_over_pty_with_link_faults(tmp_path):
-    vt = VirtualTimer(contacts=presses(60, moon_every=7), link_faults=0.001, seed=3)
+@pytest.mark.parametrize("rate", [0.001, 0.02])
+def test_sync_over_pty_with_link_faults(tmp_path, rate):
+    """Through pyserial and a real pseudo-terminal (the timer in its own thread): the timeouts here
+    are generous and never what is checked."""
+    vt = VirtualTimer(contacts=presses(60, moon_every=7), link_faults=rate, seed=3)
     vt.run_contacts()
     recs = device_records(vt)
     assert len(recs) >= 60
     port = vt.start()
     try:
         db = str(tmp_path / "a.sqlite3")
-        first = sync.sync_port(port, db, progress=False, timeout=0.1)
-        again = sync.sync_port(port, db, progress=False, timeout=0.1)
+        first = sync.sync_port(port, db, progress=False, timeout=1.0)
+        again = sync.sync_port(port, db, progress=False, timeout=1.0)
     finally:
         vt.stop()
     assert first["new"] == len(recs) and first["device"] == vt.device_id
