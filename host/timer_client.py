@@ -43,7 +43,7 @@ from device import PROTOCOL_VERSION, frame, protocol as P
 from device.log import unpack_records, LogError, RECORD_LEN
 
 
-QUIET_S = 0.03                   # after the last byte, this much silence ends a round
+QUIET_S = 0.01                   # after the last byte, this much silence ends a round
 ROUND_EXTRA = 4.0                # a round receiving bytes ends at the latest this many timeouts after the wait
 BACKOFF = 1.5                    # the wait for a first byte grows by this per silent round
 MAX_BACKOFF = 4.0                # ... up to this many times ``timeout``
@@ -270,15 +270,16 @@ class TimerClient:
                 "naks": self.naks}
 
     # -- requests -------------------------------------------------------------
-    def request(self, ftype, body=b""):
+    def request(self, ftype, body=b"", answer_max=None):
         """Send one command, return the answer body (see the module docstring for the rounds).
 
         ``body`` may be a function of the frame body size the link allows now (``max_body``);
-        it is built once, so a repeat is the same request."""
+        it is built once, so a repeat is the same request.  ``answer_max``: the longest answer
+        the command can give, when known (a round then ends as soon as its one frame is in)."""
         self._adapt_between()
-        return self._request(ftype, body)
+        return self._request(ftype, body, answer_max)
 
-    def _request(self, ftype, body):
+    def _request(self, ftype, body, answer_max=None):
         self.seq = (self.seq + 1) & 0xFF
         seq = self.seq
         self.requests += 1
@@ -290,7 +291,8 @@ class TimerClient:
         t0 = self._now()
         heard = False
         send = wire
-        expect = None                          # frames the round should bring (None: not known)
+        one = 1 if answer_max is not None and answer_max <= self.part_len else None
+        expect = one                         # frames the round should bring (None: not known)
         while True:
             try:
                 self.port.write(send * self._request_copies(len(send)))
@@ -306,7 +308,7 @@ class TimerClient:
                     code = rbody[0] if rbody else 0
                     if code == P.E_GONE and send is not wire:
                         asm = Assembly()          # the timer lost the answer: ask again
-                        send, expect = wire, None
+                        send, expect = wire, one
                         continue
                     raise DeviceRefused(code, bytes(rbody[1:]).decode("utf-8", "replace"))
                 return rbody
@@ -325,21 +327,21 @@ class TimerClient:
             self._adapt()
             if outcome == "stale":
                 asm = Assembly()
-                send, expect = wire, None         # the timer answers another request under this seq
+                send, expect = wire, one        # the timer answers another request under this seq
             elif outcome == "nak" and send is wire or (nbytes == 0 and asm.total is None):
-                send, expect = wire, None         # the request was damaged or lost: send it again
+                send, expect = wire, one        # the request was damaged or lost: send it again
             else:
                 # the timer answered, damaged or in part: ask for the parts still missing, in the size
                 # the link allows now (the whole answer when nothing of it arrived)
                 plen = min(self.target, self.part_len)    # within one answer parts only shrink
                 copies = 1
                 if asm.total is not None:
-                    first, bits, expect = asm.missing_cells(plen)
+                    cell0, bits, expect = asm.missing_cells(plen)
                     copies = self._copies(plen, expect)
                     expect *= copies
                 else:
-                    first, bits, expect = 0, b"", None
-                send = frame.encode(P.RESEND, seq, struct.pack("<HHB", plen, first, copies) + bits)
+                    cell0, bits, expect = 0, b"", None
+                send = frame.encode(P.RESEND, seq, struct.pack("<HHB", plen, cell0, copies) + bits)
                 self.part_len = plen
 
     def _give_up(self, heard, rounds, t0):
@@ -382,7 +384,7 @@ class TimerClient:
                 break                      # the answer is over (or bytes keep coming that are none)
             if expect is None and asm.total is not None and plen:
                 expect = max(1, (asm.total + plen - 1) // plen)
-            if expect is not None and ends >= expect and not self._pending():
+            if expect and ends >= expect and not self._pending():
                 break
             try:
                 n = getattr(self.port, "in_waiting", 0) or 1
@@ -469,7 +471,7 @@ class TimerClient:
             return
         self._adapt()
         if self.target * 3 < self.part_len * 2 or self.target > self.part_len * 2:
-            got = self._request(P.LINK, struct.pack("<H", self.target))
+            got = self._request(P.LINK, struct.pack("<H", self.target), 2)
             if len(got) == 2:
                 self.part_len = struct.unpack("<H", got)[0] or P.MAX_PART
 
@@ -529,7 +531,8 @@ class TimerClient:
         """``(log_id, base_seq, next_seq, [Record])``: up to ``batch`` records the timer holds with
         ``seq >= from_seq``, in seq order, each CRC-checked.  Seqs absent between ``from_seq`` and
         the last record returned are not held by the timer (damaged there and skipped)."""
-        raw = self.request(P.READ_LOG, struct.pack("<IH", from_seq, max(1, min(batch, P.LOG_BATCH_MAX))))
+        count = max(1, min(batch, P.LOG_BATCH_MAX))
+        raw = self.request(P.READ_LOG, struct.pack("<IH", from_seq, count), P.LOG_HEAD + count * RECORD_LEN)
         if len(raw) < P.LOG_HEAD:
             raise TransferError("short read-log answer")
         log_id, base, nxt, count = struct.unpack("<IIII", bytes(raw[:P.LOG_HEAD]))
@@ -567,7 +570,7 @@ class TimerClient:
         what it holds and reclaims them.  Returns ``{"log_id", "confirmed_seq", "base_seq",
         "next_seq", "free_records"}``; ``DeviceRefused`` (code ``E_IDENTITY``, ``E_PROOF`` or
         ``E_LOG``) when it does not match: the timer keeps the records."""
-        raw = self.request(P.ACK, struct.pack("<IIII", log_id, from_seq, last_seq, crc))
+        raw = self.request(P.ACK, struct.pack("<IIII", log_id, from_seq, last_seq, crc), 16)
         if len(raw) != 16:
             raise TransferError("the timer sent an unreadable answer to the acknowledgement")
         lid, base, nxt, free = struct.unpack("<IIII", bytes(raw))
