@@ -344,10 +344,11 @@ def quick_check(conn):
     return [] if rows == ["ok"] else rows
 
 
-def damaged_message(path, problems):
-    return ("archive %s is damaged (SQLite quick_check: %s): nothing was written to it and nothing "
-            "acknowledged to the timer; keep the file, restore a backup or sync into a new archive"
-            % (path, "; ".join(str(p) for p in problems[:2])))
+def damaged_message(path, problems, before_ack=False):
+    what = ("the records since the last acknowledgement were NOT acknowledged: the timer keeps them"
+            if before_ack else "nothing was written to it and nothing acknowledged to the timer")
+    return ("archive %s is damaged (SQLite quick_check: %s): %s; keep the file, restore a backup or sync into a "
+            "new archive" % (path, "; ".join(str(p) for p in problems[:2]), what))
 
 
 def connect(path, target=SCHEMA_VERSION, mode="write", new=False):
@@ -487,7 +488,8 @@ def open_readonly(path, target=SCHEMA_VERSION):
     except sqlite3.DatabaseError as exc:
         text = str(exc)
         if "malformed" in text or "not a database" in text:
-            raise ArchiveDamaged("archive %s is damaged (SQLite: %s): restore a backup" % (path, text))
+            raise ArchiveDamaged("archive %s is damaged (SQLite: %s): restore a backup (the sqlite3 shell's "
+                                 "`.recover` salvages the readable rows into a new file)" % (path, text))
         raise ArchiveError("%s: cannot read the archive: %s" % (path, text))
     finally:
         if src is not None:

@@ -55,7 +55,7 @@ def run_sync(args):
     except archive.ArchiveReadOnly as exc:
         raise UserError("%s; nothing was read from the timer (its records stay on it)" % exc)
     except sqlite3_errors() as exc:
-        raise archive.ArchiveDamaged(archive.damaged_message(db, [exc]))
+        raise archive.ArchiveDamaged(archive.damaged_message(db, [exc], before_ack=True))
     lid = archive.log_label(res["log_id"])
     if args.json:
         print(json.dumps({"new": res["new"], "duplicates": res["duplicates"], "device": res["device"],

@@ -208,13 +208,13 @@ def verify(conn, device_id, log_id, first_seq, last_seq):
     try:
         problems = archive.quick_check(probe)
         if problems:
-            raise archive.ArchiveDamaged(archive.damaged_message(path, problems))
+            raise archive.ArchiveDamaged(archive.damaged_message(path, problems, before_ack=True))
         try:
             return archive.range_proof(probe, device_id, log_id, first_seq, last_seq)
         except archive.ArchiveError as exc:
-            raise archive.ArchiveDamaged("%s: nothing was acknowledged to the timer" % exc)
+            raise archive.ArchiveDamaged("%s; not acknowledged: the timer keeps these records" % exc)
         except Exception as exc:  # sqlite3.DatabaseError on a malformed page
-            raise archive.ArchiveDamaged(archive.damaged_message(path, [exc]))
+            raise archive.ArchiveDamaged(archive.damaged_message(path, [exc], before_ack=True))
     finally:
         if probe is not conn:
             probe.close()

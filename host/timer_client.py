@@ -8,7 +8,7 @@ that each carry their byte offset (protocol 2, ``device/PROTOCOL.md``)::
     with TimerClient("/dev/ttyACM0") as t:
         info = t.handshake()       # {"protocol", "firmware", "device_id", "log_id", "origin_seq", "base_seq", "next_seq"}
         log_id, base, nxt, recs = t.read_log_batch(base)   # device.log.Record objects, CRC-checked end to end
-        t.ack(log_id, base, recs[-1].seq, proof)           # proof: CRC-32 of the records the host HOLDS
+        t.ack(log_id, base, recs[-1].seq, device.protocol.proof(records the host HOLDS))
 
 How a request completes on a poor link (measured in ``bench/bench_host.py``):
 

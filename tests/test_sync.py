@@ -310,6 +310,31 @@ def test_damaged_archive_is_never_acknowledged(tmp_path):
     assert vt.fw.log.confirmed_seq == confirmed and device_records(vt) == held and len(held) >= 25
 
 
+def test_archive_damaged_during_the_sync_is_not_acknowledged(tmp_path, monkeypatch):
+    """The file is damaged after the sync opened it (8 KB of random bytes in its middle, between a
+    COMMIT and the ACK): the read-back through a fresh connection fails SQLite's quick_check and
+    nothing is acknowledged; the timer keeps every record."""
+    db = str(tmp_path / "a.sqlite3")
+    vt = VirtualTimer(contacts=presses(400, step_s=2))
+    vt.run_contacts()
+    conn = archive.connect(db)
+    sync.sync(TimerClient(vt.loopback()), conn, progress=False)
+    conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    press_more(vt, 40)
+    held = device_records(vt)
+    confirmed = vt.fw.log.confirmed_seq
+    real = archive.store_records
+
+    def store_then_damage(c, device_id, records, log_id=0):
+        out = real(c, device_id, records, log_id)
+        damage(db)
+        return out
+    monkeypatch.setattr(archive, "store_records", store_then_damage)
+    with pytest.raises(archive.ArchiveDamaged, match="is damaged .*NOT acknowledged: the timer keeps them"):
+        sync.sync(TimerClient(vt.loopback()), conn, progress=False)
+    assert vt.fw.log.confirmed_seq == confirmed and device_records(vt) == held
+
+
 def test_empty_and_foreign_files_are_refused_unless_new(tmp_path):
     import sqlite3
     vt = VirtualTimer(contacts=presses(5))
