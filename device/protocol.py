@@ -149,7 +149,7 @@ def split(rtype, seq, body, part_len, ranges=None):
 
 class Protocol:
     """``feed(bytes)`` -> bytes to send back.  ``fw`` is the ``Firmware`` (status, log, clock, store)."""
-    __slots__ = ("fw", "decoder", "last_key", "last_type", "last_body", "last_part", "last_tick", "push",
+    __slots__ = ("fw", "decoder", "last_key", "last_type", "last_body", "last_tick", "push",
                  "requests", "snapshot", "last_rx", "part_len")
 
     def __init__(self, fw):
@@ -158,7 +158,6 @@ class Protocol:
         self.last_key = None
         self.last_type = 0
         self.last_body = b""
-        self.last_part = 0
         self.last_tick = 0
         self.push = None                 # [slot, size, crc, received, running crc]
         self.requests = 0
@@ -193,7 +192,8 @@ class Protocol:
                 out.append(self._resend(seq, body))
                 continue
             if key == self.last_key and now - self.last_tick < REPLAY_US:
-                out.append(split(self.last_type, seq, self.last_body, self.last_part))
+                # the same answer, cut to the part size in force now (the host places parts by offset)
+                out.append(split(self.last_type, seq, self.last_body, self.part_len))
                 continue
             self.requests += 1
             try:
@@ -203,7 +203,6 @@ class Protocol:
             self.last_key = key
             self.last_type = rtype
             self.last_body = answer
-            self.last_part = self.part_len
             self.last_tick = now
             out.append(split(rtype, seq, answer, self.part_len))
         return b"".join(out)

@@ -17,11 +17,14 @@ How a request completes on a poor link (measured in ``bench/bench_host.py``):
   line has been quiet for ``QUIET_S`` after the last byte.  Then it asks
   again: the whole request if nothing of the answer came (the timer answers a
   repeat from its cache, so a retried ACK or file chunk is not applied twice),
-  else ``RESEND`` with the byte ranges still missing (selective repeat).
+  else ``RESEND`` with a bitmap of the parts still missing (selective repeat).
+  A round also ends as soon as the frames it expects have all ended.
 * Frame size.  The client estimates the byte error rate from the frames it
   receives whole and damaged and picks the part size that carries the most
   data per byte sent, about 1 / (error rate) (``part_for``); RESEND and LINK
-  tell the timer.  File chunks follow the same size.
+  tell the timer.  File chunks follow the same size.  When a request frame is
+  more likely damaged than not it goes twice in a row, and the last few short
+  parts are asked for in copies.
 * Backoff.  When nothing at all comes back the wait grows by ``BACKOFF`` per
   round, up to ``MAX_BACKOFF`` times ``timeout`` (a timer busy with an
   on-board reduction, a slow USB hub).
@@ -291,8 +294,10 @@ class TimerClient:
         t0 = self._now()
         heard = False
         send = wire
-        one = 1 if answer_max is not None and answer_max <= self.part_len else None
-        expect = one                         # frames the round should bring (None: not known)
+
+        def one():                           # frames a fresh answer brings, when known
+            return 1 if answer_max is not None and answer_max <= self.part_len else None
+        expect = one()                       # frames the round should bring (None: not known)
         while True:
             try:
                 self.port.write(send * self._request_copies(len(send)))
@@ -308,7 +313,7 @@ class TimerClient:
                     code = rbody[0] if rbody else 0
                     if code == P.E_GONE and send is not wire:
                         asm = Assembly()          # the timer lost the answer: ask again
-                        send, expect = wire, one
+                        send, expect = wire, one()
                         continue
                     raise DeviceRefused(code, bytes(rbody[1:]).decode("utf-8", "replace"))
                 return rbody
@@ -327,9 +332,9 @@ class TimerClient:
             self._adapt()
             if outcome == "stale":
                 asm = Assembly()
-                send, expect = wire, one        # the timer answers another request under this seq
+                send, expect = wire, one()      # the timer answers another request under this seq
             elif outcome == "nak" and send is wire or (nbytes == 0 and asm.total is None):
-                send, expect = wire, one        # the request was damaged or lost: send it again
+                send, expect = wire, one()      # the request was damaged or lost: send it again
             else:
                 # the timer answered, damaged or in part: ask for the parts still missing, in the size
                 # the link allows now (the whole answer when nothing of it arrived)
@@ -365,9 +370,10 @@ class TimerClient:
         """Collect frames for request ``seq`` until its answer is whole, a NAK, ``QUIET_S`` of
         silence after some bytes (or, sooner, the ``expect`` frames asked for have all ended and
         nothing more is waiting), or ``wait`` with nothing.  ``plen``: the part size the timer
-        cuts this answer into (to know how many frames a multi-part answer brings).  Returns (outcome, (rtype, body) or
-        None, progress, bytes received); outcome is "done", "nak", "stale" (an answer of another
-        type under this seq: the timer never got this request) or "open"."""
+        cuts this answer into (to know how many frames a multi-part answer brings).  Returns
+        (outcome, (rtype, body) or None, progress, bytes received); outcome is "done", "nak",
+        "stale" (an answer of another type under this seq: the timer never got this request) or
+        "open"."""
         start = self._now()
         last_rx = None
         nbytes = 0
