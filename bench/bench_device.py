@@ -14,7 +14,7 @@ T0 = parse_utc("2029-08-03T06:00:00Z")
 def wire_per_record():
     body = P.LOG_BATCH_MAX
     req = len(frame.encode(P.READ_LOG, 1, b"\x00" * 6))
-    resp = len(frame.encode(P.READ_LOG | P.RESPONSE, 1, b"\x00" * (12 + body * L.RECORD_LEN)))
+    resp = len(frame.encode(P.READ_LOG | P.RESPONSE, 1, b"\x00" * (P.LOG_HEAD + body * L.RECORD_LEN)))
     return body, (req + resp) / body
 
 
@@ -27,9 +27,10 @@ def sync(n, faults):
     try:
         c = TimerClient(port, timeout=0.2, retries=30)
         t = time.perf_counter()
-        c.handshake()
-        got = sum(1 for _ in c.read_log(0))
-        c.ack(n)
+        info = c.handshake()
+        recs = [r.pack() for r in c.read_log(0)]
+        c.ack(info["log_id"], 1, n, P.proof(recs))
+        got = len(recs)
         dt = time.perf_counter() - t
         c.close()
     finally:

@@ -13,4 +13,4 @@ side of the shim is ``simboard``).  ``manifest.py`` freezes the firmware.
 """
 
 FIRMWARE_VERSION = "0.1.0"
-PROTOCOL_VERSION = 1
+PROTOCOL_VERSION = 2

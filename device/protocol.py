@@ -2,9 +2,19 @@
 
 See ``device/PROTOCOL.md`` for the commands and their bodies.  The codec is
 ``device.frame``; this module only knows the command numbers and bodies.
-A retried command that changes something (``CHANGES``: same ``seq``, type and
-body as the last one, within ``REPLAY_US``) gets the cached response again
-without running twice; reads are simply run again (fresh data).
+
+Protocol 2 (log identity, proven acknowledgements, split answers):
+
+* The timer keeps the answer to the last request.  A repeat of that request
+  (same type, ``seq`` and body, within ``REPLAY_US``) gets the same answer again
+  without running the command twice, and ``RESEND`` asks for byte ranges of it.
+* An answer longer than the link's part size (``part_len``, set by HELLO or
+  LINK; 0: whole answers) travels as ``PART`` frames, each carrying its offset,
+  so a noisy link loses only the damaged parts and the host asks for those.
+* ACK names the log identity and the range it confirms, with a CRC-32 over the
+  records the host holds in it (``proof``: each record without its own CRC-32);
+  the timer computes the same over what it holds (``held_proof``) and keeps its
+  records when they differ.
 """
 import binascii
 import json
@@ -21,29 +31,40 @@ PUSH_BEGIN = 0x06
 PUSH_DATA = 0x07
 PUSH_END = 0x08
 FILE_INFO = 0x09
+RESEND = 0x0A                    # byte ranges of the last answer again (as PART frames)
+LINK = 0x0B                      # set the part size of answers
 RESPONSE = 0x80
-CHANGES = (ACK, SET_TIME, PUSH_BEGIN, PUSH_DATA, PUSH_END)   # answered from the cache when repeated
+CHANGES = (ACK, SET_TIME, PUSH_BEGIN, PUSH_DATA, PUSH_END)   # commands that change something
+PART = 0x7E
 ERROR = 0x7F
 
 E_UNKNOWN = 1        # unknown command
 E_BAD = 2            # malformed request body
 E_REFUSED = 3        # the device will not do it now (e.g. set time while GPS-locked)
-E_LOG = 4            # the log cannot do it (ack beyond the last record)
+E_LOG = 4            # the log cannot do it (ack beyond the last record, range not held)
 E_FILE = 5           # file push failed (gap, size or CRC mismatch, unknown slot, no space)
 E_DAMAGED = 6        # a damaged frame arrived (seq unknown): the host may resend at once
+E_IDENTITY = 7       # the ack names another log than the one the timer holds
+E_PROOF = 8          # the ack's CRC-32 does not match the records the timer holds in the range
+E_GONE = 9           # RESEND for an answer the timer no longer holds: ask again
 
 SLOTS = ("instrument", "almanac", "track")
-CHUNK = 512                      # bytes of file data per PUSH_DATA
+CHUNK = 512                      # bytes of file data per PUSH_DATA (the host may send less)
 IDLE_GAP_US = 20000              # silence inside a frame longer than this: the frame is lost
 REPLAY_US = 10000000             # a repeated request within 10 s is a retry: answer from the cache
-LOG_BATCH_MAX = (frame.MAX_BODY - 12) // 33
+LOG_HEAD = 16                    # READ_LOG answer header: log_id, base_seq, next_seq, n (u32 each)
+LOG_BATCH_MAX = (frame.MAX_BODY - LOG_HEAD) // 33
+PART_HEAD = 5                    # PART body header: answer type u8, total u16, offset u16
+MIN_PART = 8                     # smallest part the timer will cut
+MAX_PART = frame.MAX_BODY - PART_HEAD
+MAX_CELLS = 256                  # parts one RESEND can ask for (a bitmap of 32 bytes)
 
 
 class Refused(Exception):
     """A command the device answers with an ERROR frame."""
 
     def __init__(self, code, message):
-        Exception.__init__(self, message)
+        super().__init__(message)      # (MicroPython has no Exception.__init__ to call directly)
         self.code = code
         self.message = message
 
@@ -64,20 +85,85 @@ def file_crc(store, name):
     return size, crc & 0xFFFFFFFF
 
 
+PROOF_BYTES = 29                 # of each 33-byte record: all but its own CRC-32 (see ``proof``)
+
+
+def proof(records, crc=0):
+    """The CRC-32 an ACK carries: over each record the host holds in the acknowledged range
+    (33 packed bytes, in seq order) WITHOUT its last 4 bytes, the record's own CRC-32.
+
+    Why not over the whole records: a CRC-32 run over data followed by its own CRC-32
+    (little-endian) always leaves the same remainder (0x2144DF1C for this CRC), so a CRC-32 over
+    whole records would depend on their number only, never on their content.  ``records``: an
+    iterable of packed records; ``crc``: the value so far (to continue a running proof)."""
+    for r in records:
+        crc = binascii.crc32(r[:PROOF_BYTES], crc)
+    return crc & 0xFFFFFFFF
+
+
+def held_proof(log, first, last):
+    """``proof`` over the records ``log`` holds with ``first <= seq <= last`` (read in chunks of 16,
+    gaps skipped), or None when the range is not held (starts before the first record held or
+    ends after the last)."""
+    if first < log.base_seq or last >= log.next_seq or last < first:
+        return None
+    crc = 0
+    s = first
+    while s <= last:
+        data = log.read_raw(s, 16)
+        if not data:
+            break
+        off = 0
+        seq = s
+        while off + 33 <= len(data):
+            seq = struct.unpack("<I", data[off + 2:off + 6])[0]
+            if seq > last:
+                return crc & 0xFFFFFFFF
+            crc = binascii.crc32(data[off:off + PROOF_BYTES], crc)
+            off += 33
+        s = seq + 1
+    return crc & 0xFFFFFFFF
+
+
+def split(rtype, seq, body, part_len, ranges=None):
+    """The wire bytes of an answer: one frame when it fits in ``part_len`` (0: always), else PART
+    frames of at most ``part_len`` bytes each; ``ranges``: only the parts covering these
+    ``(offset, length)`` byte ranges (a RESEND)."""
+    n = len(body)
+    if not part_len or (n <= part_len and ranges is None):
+        return frame.encode(rtype, seq, body)
+    part_len = max(MIN_PART, min(part_len, MAX_PART))
+    if ranges is None:
+        ranges = ((0, n),)
+    out = []
+    for off, length in ranges:
+        end = min(n, off + length)
+        while off < end or (n == 0 and off == 0 and not out):
+            k = min(part_len, end - off)
+            out.append(frame.encode(PART, seq, struct.pack("<BHH", rtype, n, off) + body[off:off + k]))
+            off += k
+            if k == 0:
+                break
+    return b"".join(out)
+
+
 class Protocol:
     """``feed(bytes)`` -> bytes to send back.  ``fw`` is the ``Firmware`` (status, log, clock, store)."""
-    __slots__ = ("fw", "decoder", "last_key", "last_reply", "last_tick", "push", "requests", "snapshot", "last_rx")
+    __slots__ = ("fw", "decoder", "last_key", "last_type", "last_body", "last_tick", "push",
+                 "requests", "snapshot", "last_rx", "part_len")
 
     def __init__(self, fw):
         self.fw = fw
         self.decoder = frame.Decoder()
         self.last_key = None
-        self.last_reply = b""
+        self.last_type = 0
+        self.last_body = b""
         self.last_tick = 0
         self.push = None                 # [slot, size, crc, received, running crc]
         self.requests = 0
         self.snapshot = None
         self.last_rx = 0
+        self.part_len = 0                # 0: whole answers (a protocol-1 host never sets it)
 
     def idle(self, now):
         """Called when nothing arrived: a frame cut short (its 0x00 lost) for ``IDLE_GAP_US`` is
@@ -85,39 +171,86 @@ class Protocol:
         if self.decoder.buf and now - self.last_rx > IDLE_GAP_US:
             self.decoder.buf = bytearray()
             self.decoder.errors += 1
-            return frame.encode(ERROR, 0, bytes((E_DAMAGED,)) + b"damaged frame")
+            return frame.encode(ERROR, 0, bytes((E_DAMAGED,)))
         return b""
 
     def feed(self, data):
         self.last_rx = self.fw.now()
-        out = b""
+        out = []
         errors = self.decoder.errors
         frames = self.decoder.feed(data)
         if self.decoder.errors != errors:
-            out += frame.encode(ERROR, 0, bytes((E_DAMAGED,)) + b"damaged frame")
+            out.append(frame.encode(ERROR, 0, bytes((E_DAMAGED,))))
+        seen = None
         for ftype, seq, body in frames:
-            key = (ftype, seq, bytes(body))
             now = self.fw.now()
-            if ftype in CHANGES and key == self.last_key and now - self.last_tick < REPLAY_US:
-                out += self.last_reply
+            key = (ftype, seq, bytes(body))
+            if key == seen:
+                continue                 # the host sent it twice (a noisy link): answer once
+            seen = key
+            if ftype == RESEND:
+                out.append(self._resend(seq, body))
+                continue
+            if key == self.last_key and now - self.last_tick < REPLAY_US:
+                # the same answer, cut to the part size in force now (the host places parts by offset)
+                out.append(split(self.last_type, seq, self.last_body, self.part_len))
                 continue
             self.requests += 1
             try:
-                reply = frame.encode(ftype | RESPONSE, seq, self.handle(ftype, body))
+                rtype, answer = ftype | RESPONSE, self.handle(ftype, body)
             except Refused as e:
-                msg = e.message.encode()[:200]
-                reply = frame.encode(ERROR, seq, bytes((e.code,)) + msg)
+                rtype, answer = ERROR, bytes((e.code,)) + e.message.encode()[:200]
             self.last_key = key
-            self.last_reply = reply
+            self.last_type = rtype
+            self.last_body = answer
             self.last_tick = now
-            out += reply
-        return out
+            out.append(split(rtype, seq, answer, self.part_len))
+        return b"".join(out)
+
+    def _resend(self, seq, body):
+        """Parts of the last answer again: part_len u16, first u16, copies u8, then a bitmap whose
+        bit i (byte i // 8, bit i % 8) asks for part ``first + i`` (bytes ``part_len`` times that,
+        on); no bitmap: the whole answer.  Each part goes ``copies`` times (1-4: a very noisy
+        link gets the last missing parts sooner).  The part size also becomes the link's."""
+        if len(body) < 5 or len(body) > 5 + MAX_CELLS // 8:
+            return frame.encode(ERROR, seq, bytes((E_BAD,)) + b"resend needs part_len, first, copies, bitmap")
+        if self.last_key is None or self.last_key[1] != seq:
+            return frame.encode(ERROR, seq, bytes((E_GONE,)) + b"that answer is no longer held: ask again")
+        plen, first, copies = struct.unpack("<HHB", body[:5])
+        if plen:
+            self.part_len = max(MIN_PART, min(plen, MAX_PART))
+        plen = self.part_len or MAX_PART
+        ranges = None
+        if len(body) > 5:
+            ranges = []
+            for i in range(8 * (len(body) - 5)):
+                if body[5 + i // 8] >> (i % 8) & 1:
+                    off = (first + i) * plen
+                    if ranges and ranges[-1][0] + ranges[-1][1] == off:
+                        ranges[-1][1] += plen
+                    else:
+                        ranges.append([off, plen])
+        out = split(self.last_type, seq, self.last_body, plen, ranges)
+        return out * max(1, min(copies, 4))
 
     def handle(self, ftype, body):
         fw = self.fw
         if ftype == HELLO:
+            # protocol-2 hosts add the part size they want: version u8, part_len u16
+            if len(body) >= 3:
+                plen = struct.unpack("<H", body[1:3])[0]
+                self.part_len = max(MIN_PART, min(plen, MAX_PART)) if plen else 0
+            log = fw.log
             return json.dumps({"protocol": PROTOCOL_VERSION, "firmware": fw.firmware_version,
-                               "device_id": fw.device_id}).encode()
+                               "device_id": fw.device_id, "log_id": log.log_id, "origin_seq": log.origin_seq,
+                               "base_seq": log.base_seq, "next_seq": log.next_seq},
+                              separators=(",", ":")).encode()
+        if ftype == LINK:
+            if len(body) != 2:
+                raise Refused(E_BAD, "link needs part_len u16")
+            plen = struct.unpack("<H", body)[0]
+            self.part_len = max(MIN_PART, min(plen, MAX_PART)) if plen else 0
+            return struct.pack("<H", self.part_len)
         if ftype == STATUS:
             # paged so that a noisy link can fetch it in small frames: offset u16, max_len u16
             off, n = struct.unpack("<HH", body) if len(body) == 4 else (0, frame.MAX_BODY - 2)
@@ -132,16 +265,9 @@ class Protocol:
             count = max(1, min(count, LOG_BATCH_MAX))
             log = fw.log
             data = log.read_raw(from_seq, count)
-            return struct.pack("<III", log.base_seq, log.next_seq, len(data) // 33) + data
+            return struct.pack("<IIII", log.log_id, log.base_seq, log.next_seq, len(data) // 33) + data
         if ftype == ACK:
-            if len(body) != 4:
-                raise Refused(E_BAD, "ack needs seq u32")
-            seq = struct.unpack("<I", body)[0]
-            try:
-                fw.log.ack(seq)
-            except ValueError as e:
-                raise Refused(E_LOG, str(e))
-            return json.dumps({"confirmed_seq": fw.log.confirmed_seq, "free_records": fw.log.free_records}).encode()
+            return self._ack(body)
         if ftype == SET_TIME:
             if len(body) != 12:
                 raise Refused(E_BAD, "set-time needs utc_us i64 and uncertainty_us u32")
@@ -162,6 +288,33 @@ class Protocol:
             size, crc = file_crc(fw.store, "slot_" + slot)
             return json.dumps({"slot": slot, "size": size, "crc32": crc}).encode()
         raise Refused(E_UNKNOWN, "unknown command 0x%02x" % ftype)
+
+    def _ack(self, body):
+        """log_id u32, from_seq u32, last_seq u32, proof u32: reclaim ``from_seq..last_seq`` when the
+        log is that one, the range starts at the first record held and the proof matches."""
+        if len(body) != 16:
+            raise Refused(E_BAD, "ack needs log_id, from_seq, last_seq and crc32 (u32 each; protocol 2)")
+        log_id, first, last, crc = struct.unpack("<IIII", body)
+        log = self.fw.log
+        if log_id != log.log_id:
+            raise Refused(E_IDENTITY, "ack names log %08x but this timer's log is %08x: nothing reclaimed"
+                          % (log_id, log.log_id))
+        if last >= log.base_seq:
+            if first != log.base_seq:
+                raise Refused(E_LOG, "ack from seq %d but the first record held is %d: nothing reclaimed"
+                              % (first, log.base_seq))
+            if last >= log.next_seq:
+                raise Refused(E_LOG, "acknowledged seq %d is beyond the last record %d: nothing reclaimed"
+                              % (last, log.next_seq - 1))
+            held = held_proof(log, first, last)
+            if held != crc:
+                raise Refused(E_PROOF, "ack proof %08x does not match the records %d..%d held here: "
+                              "nothing reclaimed" % (crc, first, last))
+            try:
+                log.ack(last)
+            except ValueError as e:
+                raise Refused(E_LOG, str(e))
+        return struct.pack("<IIII", log.log_id, log.base_seq, log.next_seq, log.free_records)
 
     def _slot(self, raw):
         try:

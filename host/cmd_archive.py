@@ -8,6 +8,11 @@
     limbclock archive plan --db FILE --session ID --from UTC --to UTC
     limbclock archive calibrate --db FILE --session ID
     limbclock export --db FILE [--json] [--csv DIR] [--gpx FILE] [--geojson FILE]
+
+Listing sessions, ``archive plan`` and ``export`` open the archive read-only (a snapshot:
+they never write to it).  ``archive fix`` and ``archive calibrate`` store their result; on a
+read-only archive (file mode, directory, medium) they compute from a snapshot and say that
+nothing was stored.  Attaching conditions needs a writable archive.
 """
 import json
 import os
@@ -75,11 +80,46 @@ def register(sub):
     p.set_defaults(func=run_export)
 
 
-def open_db(args, must_exist=True):
+def open_db(args, must_exist=True, write=True, fallback=False):
+    """The archive of ``--db``: for writing (``write``), else a read-only snapshot; with
+    ``fallback``, a read-only archive is opened as a snapshot instead (``conn.readonly``)."""
     path = args.db or archive.default_path()
     if must_exist and not os.path.exists(path):
         raise UserError("no archive at %s (sync a timer first, or give --db)" % path)
-    return archive.connect(path)
+    try:
+        if not write:
+            return archive.connect(path, mode="read")
+        try:
+            return archive.connect(path)
+        except archive.ArchiveReadOnly:
+            if not fallback:
+                raise
+            return archive.connect(path, mode="read")
+    except sqlite3_error() as exc:
+        raise archive.ArchiveDamaged("archive %s cannot be read (SQLite: %s): restore a backup" % (path, exc))
+
+
+def sqlite3_error():
+    import sqlite3
+    return sqlite3.DatabaseError
+
+
+def not_stored_note(conn, what):
+    if getattr(conn, "readonly", False):
+        print("note: archive %s is read-only: %s was computed but not stored" % (conn.path, what), file=sys.stderr)
+
+
+def guarded(func):
+    """Run a command; a SQLite error met on the way (a damaged page read late) becomes one line."""
+    def run(args):
+        try:
+            return func(args)
+        except sqlite3_error() as exc:
+            raise archive.ArchiveDamaged("archive %s: SQLite says %s (a damaged file: restore a backup)"
+                                         % (args.db or archive.default_path(), exc))
+    run.__name__ = func.__name__
+    run.__doc__ = func.__doc__
+    return run
 
 
 def parse_track(text, known=False):
@@ -127,14 +167,19 @@ def _pick_session(conn, args):
     return None
 
 
+@guarded
 def run_session(args):
-    conn = open_db(args)
-    s = _pick_session(conn, args)
     attach = [opt for opt, v in (("--eye-height", args.eye_height), ("--temperature", args.temperature),
                                  ("--pressure", args.pressure), ("--instrument", args.instrument),
                                  ("--track", args.track), ("--out", args.out)) if v is not None]
     if args.label or args.known:
         attach.append("--label" if args.label else "--known")
+    changes = [a for a in attach if a != "--out"]
+    try:
+        conn = open_db(args, fallback=not changes)
+    except archive.ArchiveReadOnly as exc:
+        raise UserError("%s: %s were not attached" % (exc, ", ".join(changes)))
+    s = _pick_session(conn, args)
     if s is None and attach:
         raise UserError("%s: say which session (--session ID, or --device ID --number N; "
                         "`limbclock session --db FILE` lists them)" % attach[0])
@@ -146,12 +191,13 @@ def run_session(args):
         if not rows:
             print("the archive holds no sessions yet (limbclock sync --port PORT)")
             return 0
-        print("%4s  %-12s %5s  %-20s %-20s %8s  %s" % ("id", "timer", "no.", "first contact", "last contact",
-                                                        "contacts", "conditions"))
+        print("%4s  %-12s %-8s %5s  %-20s %-20s %8s  %s" % ("id", "timer", "log", "no.", "first contact",
+                                                             "last contact", "contacts", "conditions"))
         for r in rows:
             cond = "+".join(k for k in ("observer", "track", "instrument_id") if r[k] is not None)
-            print("%4d  %-12s %5s  %-20s %-20s %8d  %s%s" % (
-                r["session_id"], r["device_id"], "-" if r["session_no"] is None else r["session_no"],
+            print("%4d  %-12s %-8s %5s  %-20s %-20s %8d  %s%s" % (
+                r["session_id"], r["device_id"], archive.log_label(r["log_id"]),
+                "-" if r["session_no"] is None else r["session_no"],
                 timescale.format_utc(r["first_us"], 0), timescale.format_utc(r["last_us"], 0), r["contacts"],
                 cond.replace("instrument_id", "instrument") or "none", ", %d fix(es)" % r["fixes"] if r["fixes"] else ""))
         return 0
@@ -181,7 +227,7 @@ def run_session(args):
                 labels[int(seq)] = None if image in ("-", "") else image
             except ValueError:
                 raise UserError("--label: expected SEQ=IMAGE, got %r" % item)
-        archive.set_image_labels(conn, s["device_id"], labels)
+        archive.set_image_labels(conn, s["device_id"], labels, s["log_id"])
     s = archive.get_session(conn, sid)
     ready = all(s[k] is not None for k in ("observer", "track", "instrument_id"))
     if args.out:
@@ -204,7 +250,8 @@ def run_session(args):
 
 
 def _session_json(r):
-    return {"session_id": r["session_id"], "device": r["device_id"], "session_no": r["session_no"],
+    return {"session_id": r["session_id"], "device": r["device_id"], "log_id": archive.log_label(r["log_id"]),
+            "session_no": r["session_no"],
             "first_utc": timescale.format_utc(r["first_us"], 3), "last_utc": timescale.format_utc(r["last_us"], 3),
             "contacts": r.get("contacts"), "fixes": r.get("fixes"),
             "observer": json.loads(r["observer"]) if r["observer"] else None,
@@ -223,7 +270,7 @@ def fix_session(conn, session_id, at_utc=None):
         if c["image"] is None and img is not None and not c.get("void"):
             labels[c["seq"]] = img
     if labels:
-        archive.set_image_labels(conn, doc["archive"]["device"], labels)
+        archive.set_image_labels(conn, doc["archive"]["device"], labels, doc["archive"]["log_id"])
     return archive.store_fix(conn, session_id, result), result
 
 
@@ -241,10 +288,12 @@ def print_fix(result, out=None, indent=""):
         print(indent + line, file=out)
 
 
+@guarded
 def run_fix(args):
-    conn = open_db(args)
+    conn = open_db(args, fallback=True)
     archive.refresh_sessions(conn)
     fix_id, result = fix_session(conn, args.session, args.at)
+    not_stored_note(conn, "the fix")
     s = archive.get_session(conn, args.session)
     if args.plot:
         os.makedirs(args.plot, exist_ok=True)
@@ -252,17 +301,21 @@ def run_fix(args):
         track = json.loads(s["track"])
         plots.plotting_sheet(result, os.path.join(args.plot, "sheet-%d.png" % fix_id), track=track)
         plots.contact_timeline(result, os.path.join(args.plot, "timeline-%d.png" % fix_id))
+    stored = not getattr(conn, "readonly", False)
     if args.json:
-        print(json.dumps(dict(result, fix_id=fix_id, session_id=args.session), indent=1))
+        print(json.dumps(dict(result, fix_id=fix_id if stored else None, session_id=args.session, stored=stored),
+                         indent=1))
         return 0
-    print("session %d, stored as fix %d" % (args.session, fix_id))
+    print("session %d, stored as fix %d" % (args.session, fix_id) if stored else
+          "session %d (read-only archive: the fix is not stored)" % args.session)
     print_fix(result)
     print(CAUTION_TEXT)
     return 0
 
 
+@guarded
 def run_plan(args):
-    conn = open_db(args)
+    conn = open_db(args, write=False)
     archive.refresh_sessions(conn)
     text = archive.session_text(conn, args.session)
     from engine import almanac, plan, session
@@ -280,10 +333,11 @@ def run_plan(args):
     return 0
 
 
+@guarded
 def run_calibrate(args):
     from engine import almanac, calibrate, instrument
     from engine.session import parse_session
-    conn = open_db(args)
+    conn = open_db(args, fallback=True)
     archive.refresh_sessions(conn)
     s = archive.get_session(conn, args.session)
     text = archive.session_text(conn, args.session)
@@ -298,6 +352,7 @@ def run_calibrate(args):
     with archive.transaction(conn):
         cid = archive.add_calibration(conn, s["instrument_id"], result)
         new_id = archive.add_instrument(conn, new_inst)
+    not_stored_note(conn, "the calibration")
     if args.json:
         print(json.dumps(dict(result, calibration_id=cid, calibrated_instrument_id=new_id), indent=1))
         return 0
@@ -310,9 +365,10 @@ def run_calibrate(args):
     return 0
 
 
+@guarded
 def run_export(args):
     from host import exports
-    conn = open_db(args)
+    conn = open_db(args, write=False)
     archive.refresh_sessions(conn)
     written = exports.write_all(conn, args.csv, args.gpx, args.geojson, args.sessions, args.plots)
     if args.json:

@@ -1,6 +1,6 @@
 """``limbclock sync`` (pull the timer's log into the archive) and ``limbclock push`` (send a file).
 
-    limbclock sync --port /dev/ttyACM0 [--db FILE] [--json]
+    limbclock sync --port /dev/ttyACM0 [--db FILE] [--new] [--json]
     limbclock push --port /dev/ttyACM0 --instrument stack.json
     limbclock push --port /dev/ttyACM0 --track session.json     # DR track + observer (limbclock-track/1)
 """
@@ -21,8 +21,11 @@ def register(sub):
     p.add_argument("--no-progress", dest="progress", action="store_false", help="never show the progress bar")
     p.add_argument("--timeout", type=float, default=1.0, metavar="S", help="seconds to wait for each answer")
     p.add_argument("--batch", type=int, default=None, metavar="N",
-                   help="records per read request (default: as many as a frame holds); smaller on a poor link")
-    p.add_argument("--json", action="store_true", help='machine-readable: {"new", "duplicates", "device"}')
+                   help="records per read request (default: as many as a frame holds)")
+    p.add_argument("--new", action="store_true",
+                   help="make a new archive in an empty (0-byte) file or an empty SQLite database at --db")
+    p.add_argument("--json", action="store_true",
+                   help='machine-readable: {"new", "duplicates", "device", "log_id", "missing_on_timer", ...}')
     p.set_defaults(func=run_sync)
 
     p = sub.add_parser("push", help="send an instrument, almanac or track file to the timer (verified)")
@@ -38,24 +41,62 @@ def register(sub):
 
 
 def run_sync(args):
+    import os
     from host import sync
     db = args.db or archive.default_path()
     if args.timeout <= 0:
         raise UserError("--timeout must be positive")
     if args.batch is not None and args.batch < 1:
         raise UserError("--batch must be at least 1")
-    res = sync.sync_port(args.port, db, progress=args.progress, timeout=args.timeout, batch=args.batch)
+    created = not os.path.exists(db) or os.path.getsize(db) == 0
+    try:
+        res = sync.sync_port(args.port, db, progress=args.progress, timeout=args.timeout, batch=args.batch,
+                             new=args.new)
+    except archive.ArchiveReadOnly as exc:
+        raise UserError("%s; nothing was read from the timer (its records stay on it)" % exc)
+    except sqlite3_errors() as exc:
+        raise archive.ArchiveDamaged(archive.damaged_message(db, [exc], before_ack=True))
+    lid = archive.log_label(res["log_id"])
     if args.json:
         print(json.dumps({"new": res["new"], "duplicates": res["duplicates"], "device": res["device"],
-                          "last_seq": res["last_seq"], "not_on_timer": res["not_on_timer"], "db": db}))
+                          "log_id": lid, "last_seq": res["last_seq"], "confirmed_seq": res["confirmed_seq"],
+                          "missing_on_timer": res["missing_on_timer"], "missing_seqs": res["missing_seqs"],
+                          "not_on_timer": res["not_on_timer"], "db": db, "link": res.get("link")}))
         return 0
+    if created:
+        print("created a new archive at %s" % db)
     if res["not_on_timer"]:
-        print("note: %d earlier record(s) of timer %s were confirmed to another archive and are no longer "
-              "on the timer; they are not in this one" % (res["not_on_timer"], res["device"]), file=sys.stderr)
-    print("timer %s: %d new record(s), %d duplicate(s); archive holds up to seq %d (%s)"
-          % (res["device"], res["new"], res["duplicates"], res["last_seq"], db))
+        print("note: %d earlier record(s) of timer %s log %s were confirmed to another archive and are no longer "
+              "on the timer; they are not in this one" % (res["not_on_timer"], res["device"], lid), file=sys.stderr)
+    if res["missing_on_timer"]:
+        print("warning: %d record(s) of timer %s log %s were damaged on the timer and could not be read (seq %s); "
+              "the archive notes them as missing" % (res["missing_on_timer"], res["device"], lid,
+                                                    _seq_ranges(res["missing_seqs"])), file=sys.stderr)
+    print("timer %s log %s: %d new record(s), %d duplicate(s); archive holds up to seq %d, the timer confirmed "
+          "up to %d (%s)" % (res["device"], lid, res["new"], res["duplicates"], res["last_seq"],
+                             res["confirmed_seq"], db))
+    link = res.get("link") or {}
+    if link.get("error_rate", 0) >= 0.0005:
+        print("link: about %.1f %% of the bytes arrived damaged (%d of %d frames); the sync completed by "
+              "asking again" % (100.0 * link["error_rate"], link["damaged"], link["damaged"] + link["frames"]))
     print(CAUTION_TEXT)
     return 0
+
+
+def sqlite3_errors():
+    import sqlite3
+    return (sqlite3.DatabaseError,)
+
+
+def _seq_ranges(seqs):
+    """``[3, 4, 5, 9]`` -> ``"3-5, 9"``."""
+    out = []
+    for s in sorted(seqs):
+        if out and s == out[-1][1] + 1:
+            out[-1][1] = s
+        else:
+            out.append([s, s])
+    return ", ".join("%d" % a if a == b else "%d-%d" % (a, b) for a, b in out)
 
 
 def run_push(args):

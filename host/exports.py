@@ -36,7 +36,7 @@ ELLIPSE_POINTS = 72
 TRACK_STEP_S = 300
 
 CONTACT_COLUMNS = ("device", "seq", "utc", "body", "limb", "session_no", "image", "void",
-                   "time_quality", "time_uncertainty_us")
+                   "time_quality", "time_uncertainty_us", "log_id")
 FIX_COLUMNS = ("fix_id", "session_id", "utc", "lat_deg", "lon_deg", "lat", "lon", "major_nm", "minor_nm",
                "major_axis_deg", "contacts_used", "rejected", "sigma0")
 
@@ -91,7 +91,7 @@ def contacts_csv(rows):
     for c in rows:
         w.writerow((c["device_id"], c["seq"], timescale.format_utc(c["utc_us"], 6), c["body"], c["limb"],
                     "" if c["session_no"] is None else c["session_no"], c.get("image") or "",
-                    int(bool(c.get("void"))), c["quality"], c["uncertainty_us"]))
+                    int(bool(c.get("void"))), c["quality"], c["uncertainty_us"], _log(c.get("log_id", 0))))
     return buf.getvalue()
 
 
@@ -109,6 +109,11 @@ def fixes_csv(rows):
                     r.get("contacts_used", ""), " ".join(str(i) for i in r.get("rejected", [])),
                     _num(r.get("sigma0"))))
     return buf.getvalue()
+
+
+def _log(log_id):
+    from host.archive import log_label
+    return log_label(log_id)
 
 
 def _num(v, decimals=3):
@@ -271,21 +276,26 @@ def archive_json(conn):
     contacts = []
     for c in archive.contacts(conn):
         contacts.append({"utc": timescale.format_utc(c["utc_us"], 6), "seq": c["seq"], "device": c["device_id"],
-                         "void": c["void"], "body": c["body"], "limb": c["limb"], "session_no": c["session_no"],
-                         "image": c["image"], "time_quality": c["quality"],
+                         "log_id": _log(c["log_id"]), "void": c["void"], "body": c["body"], "limb": c["limb"],
+                         "session_no": c["session_no"], "image": c["image"], "time_quality": c["quality"],
                          "time_uncertainty_us": c["uncertainty_us"]})
     sessions = []
     for s in archive.sessions(conn):
-        sessions.append({"session_id": s["session_id"], "device": s["device_id"], "session_no": s["session_no"],
+        sessions.append({"session_id": s["session_id"], "device": s["device_id"], "log_id": _log(s["log_id"]),
+                         "session_no": s["session_no"],
                          "first_utc": timescale.format_utc(s["first_us"], 3),
                          "last_utc": timescale.format_utc(s["last_us"], 3), "contacts": s["contacts"],
                          "observer": json.loads(s["observer"]) if s["observer"] else None,
                          "track": json.loads(s["track"]) if s["track"] else None,
                          "instrument_id": s["instrument_id"], "fixes": s["fixes"]})
     fixes = [dict(f["result"], fix_id=f["fix_id"], session_id=f["session_id"]) for f in archive.fixes(conn)]
+    logs = [{"device": g["device_id"], "log_id": _log(g["log_id"]), "origin_seq": g["origin_seq"],
+             "last_seq": g["last_seq"], "missing_on_timer": [q for d, lid, q in archive.gaps(conn, g["device_id"],
+                                                                                            g["log_id"])]}
+            for g in archive.logs(conn)]
     return {"format": "limbclock-export/1", "devices": [
         {"device": d["device_id"], "protocol": d["protocol"], "firmware": d["firmware"], "last_seq": d["last_seq"]}
-        for d in archive.devices(conn)], "contacts": contacts, "sessions": sessions, "fixes": fixes}
+        for d in archive.devices(conn)], "logs": logs, "contacts": contacts, "sessions": sessions, "fixes": fixes}
 
 
 def session_tracks(conn):

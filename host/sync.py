@@ -2,23 +2,35 @@
 
 The order of operations is what makes it safe::
 
-    handshake (protocol version)          -> device id
-    from = archive's last committed seq + 1
+    the archive opens for writing: a limbclock archive, writable, PRAGMA quick_check clean
+    handshake (protocol version 2)        -> device id, log identity (log_id, origin_seq), base/next seq
+    from = the first record the timer still holds (base_seq)
     loop: read a batch from the timer     (CRC-checked end to end by the client)
-          store it in ONE SQLite transaction, COMMIT (synchronous=FULL: on disk)
-          THEN acknowledge the batch's last seq to the timer
-    finally: acknowledge what the archive holds but the timer was never told
+          store it in ONE SQLite transaction (records, their 33 bytes, gaps), COMMIT (synchronous=FULL)
+          every ACK_EVERY records and at the end:
+             a fresh read-only connection: PRAGMA quick_check, then the CRC-32 of the records
+             of the range AS READ BACK FROM THE FILE
+             ACK(log_id, base_seq, last_seq, crc): the timer compares it with its own records
+             and only then reclaims them
 
-A kill, a pulled cable or a power cut at any point leaves the archive with
-whole batches only, and the timer still holding (unacknowledged) everything
-the archive may lack; the next sync starts from the archive's last committed
-seq, so nothing is lost and nothing is stored twice.  A record the archive
-already holds is counted as a duplicate; one that differs is an error.  Records
-the timer no longer has (confirmed to another archive, then reclaimed) are
-counted in ``not_on_timer``.
+Records are keyed on (device, log identity, seq): a log created again (reflash,
+new file) has a new identity, so its sequence numbers 1, 2, ... are new records,
+never taken for old ones.  Reading always starts at the timer's first held
+record: what the archive already holds comes back as duplicates (compared, not
+stored twice), so a sync killed between COMMIT and ACK is completed by the next
+one.  A kill, a pulled cable or a power cut at any point leaves whole batches in
+the archive and the timer holding everything not proven stored.  A damaged
+archive is refused before anything is acknowledged; a refused ACK (the timer's
+records differ from what the archive holds) stops the sync with the records
+kept on the timer.
 
-Serial transport, framing and retries are ``host.timer_client``'s; records
-are ``device.log.Record`` objects, turned into the archive's plain dicts by
+Seqs the timer skips inside what it returns (records damaged on its flash) are
+noted in the archive (``log_gaps``) and reported as ``missing_on_timer``, never
+invented.  Records of this log confirmed to another archive before this one saw
+them are counted in ``not_on_timer``.
+
+Serial transport, framing and retries are ``host.timer_client``'s; records are
+``device.log.Record`` objects, turned into the archive's plain dicts by
 ``record_dict``.
 """
 import sys
@@ -26,8 +38,9 @@ import time
 
 from host import archive
 
-PROGRESS_MIN_RECORDS = 200    # show a progress bar from this many records to fetch
-FIRST_SEQ = 1                 # a new timer log numbers its first record 1 (device/log.py, Log.open)
+PROGRESS_MIN_RECORDS = 200    # show a progress bar from this many records to fetch ...
+PROGRESS_AFTER_S = 2.0        # ... or once a transfer has taken this long (a poor link)
+ACK_EVERY = 240               # acknowledge (with its integrity check and proof) at least every this many records
 
 
 class SyncError(ValueError):
@@ -35,13 +48,14 @@ class SyncError(ValueError):
 
 
 def record_dict(r):
-    """A ``device.log.Record`` (or a dict) -> the archive's record dict."""
+    """A ``device.log.Record`` (or a dict) -> the archive's record dict (with ``raw``, its packed bytes)."""
     if isinstance(r, dict):
         return r
     from device import log as dlog
     kind = dlog.KIND_NAMES.get(r.kind, "kind-%d" % r.kind)
     d = {"seq": r.seq, "kind": kind, "utc_us": r.utc_us, "session": r.session,
-         "quality": _name(dlog.TIME_STATE_NAMES, r.time_state, "state"), "uncertainty_us": r.uncertainty_us}
+         "quality": _name(dlog.TIME_STATE_NAMES, r.time_state, "state"), "uncertainty_us": r.uncertainty_us,
+         "raw": r.pack()}
     if kind == "contact":
         d["body"] = _name(dlog.BODY_NAMES, r.body, "body")
         d["limb"] = _name(dlog.LIMB_NAMES, r.limb, "limb")
@@ -62,23 +76,29 @@ def _name(names, k, what):
 
 
 class TextProgress(object):
-    """A one-line text progress bar on a stream (stderr), redrawn with a carriage return."""
-    __slots__ = ("stream", "total", "label", "width", "shown", "t0")
+    """A one-line text progress bar on a stream (stderr), redrawn with a carriage return;
+    ``link`` (optional) returns a short text on the link's state."""
+    __slots__ = ("stream", "total", "label", "width", "shown", "t0", "link", "last_len")
 
-    def __init__(self, total, label, stream=None, width=30):
+    def __init__(self, total, label, stream=None, width=30, link=None, t0=None):
         self.stream = stream if stream is not None else sys.stderr
         self.total = max(1, total)
         self.label = label
         self.width = width
         self.shown = False
-        self.t0 = time.monotonic()
+        self.t0 = time.monotonic() if t0 is None else t0
+        self.link = link
+        self.last_len = 0
 
     def update(self, done):
         frac = min(1.0, done / float(self.total))
         n = int(round(frac * self.width))
-        rate = done / max(1e-6, time.monotonic() - self.t0)
-        self.stream.write("\r%s [%s%s] %d/%d records, %.0f/s" % (self.label, "#" * n, "." * (self.width - n), done,
-                                                                 self.total, rate))
+        rate = done / max(1e-3, time.monotonic() - self.t0)
+        extra = self.link() if self.link is not None else ""
+        line = "%s [%s%s] %d/%d records, %.0f/s%s" % (self.label, "#" * n, "." * (self.width - n), done, self.total,
+                                                     rate, extra)
+        self.stream.write("\r" + line + " " * max(0, self.last_len - len(line)))
+        self.last_len = len(line)
         self.stream.flush()
         self.shown = True
 
@@ -88,62 +108,134 @@ class TextProgress(object):
             self.stream.flush()
 
 
-def sync(client, conn, progress=None, batch=None, stream=None):
-    """Pull every record the archive lacks from the timer behind ``client`` (a
-    ``TimerClient``) into ``conn``; return ``{"new", "duplicates", "device", "last_seq",
-    "batches"}``.  ``progress``: True / False / None (auto: stderr is a terminal)."""
+def _link_text(client):
+    def text():
+        e = client.error_rate() if hasattr(client, "error_rate") else 0.0
+        return "; link %.1f %% damaged, %d-byte parts" % (100.0 * e, client.part_len) if e >= 0.0005 else ""
+    return text
+
+
+def sync(client, conn, progress=None, batch=None, stream=None, ack_every=ACK_EVERY):
+    """Pull every record the timer holds into ``conn`` (an archive opened for writing) and
+    acknowledge them with proof; return ``{"new", "duplicates", "device", "log_id", "origin_seq",
+    "last_seq", "batches", "acks", "missing_on_timer", "missing_seqs", "not_on_timer", "confirmed_seq"}``.
+    ``progress``: True / False / None (auto: stderr is a terminal)."""
+    if getattr(conn, "readonly", False):
+        raise archive.ArchiveReadOnly("archive %s is opened read-only: sync needs to write to it" % conn.path)
     started = archive.now_us()
     info = client.handshake()
-    device_id = info.get("device_id")
+    device_id = info["device_id"]
+    log_id = info["log_id"]
+    origin = info["origin_seq"]
     with archive.transaction(conn):
         archive.ensure_device(conn, device_id, info.get("protocol"), info.get("firmware"))
-    have = archive.last_seq(conn, device_id)
-    s = max(have + 1, FIRST_SEQ)
-    new = dup = batches = skipped = 0
-    bar = None
+        archive.ensure_log(conn, device_id, log_id, origin)
+    held = archive.last_seq(conn, device_id, log_id)
+    base = info["base_seq"]
+    nxt = info["next_seq"]
+    first_wanted = held + 1 if held >= 0 else origin
+    not_on_timer = max(0, min(base, nxt) - max(first_wanted, origin))
     kw = {} if batch is None else {"batch": batch}
-    base = nxt = None
+    new = dup = batches = acks = 0
+    missing = []
+    s = base
+    ack_from = base                      # the timer's first held record: where the next ACK starts
+    last_stored = None                   # the last seq stored (or found) and not yet acknowledged
+    bar = None
+    t0 = time.monotonic()
+    show = progress if progress is not None else _isatty(stream or sys.stderr)
+    confirmed = base - 1
     try:
-        while True:
-            base, nxt, recs = client.read_log_batch(s, **kw)
-            if have >= nxt:
-                raise SyncError("timer %s numbers its next record %d but the archive already holds up to %d: "
-                                "was the timer reset? (its log restarted; refusing to mix the two)"
-                                % (device_id, nxt, have))
-            if batches == 0 and base > s:
-                # already confirmed to another archive and reclaimed on the timer: gone from here
-                skipped = base - s
-            if bar is None:
-                todo = max(0, nxt - max(s, base))
-                show = progress if progress is not None else _isatty(stream or sys.stderr)
-                if show and todo >= PROGRESS_MIN_RECORDS:
-                    bar = TextProgress(todo, "sync %s" % device_id, stream)
-                    done0 = max(s, base)
-            if not recs:
-                break
+        while s < nxt:
+            lid, b, nxt, recs = client.read_log_batch(s, **kw)
+            if lid != log_id:
+                raise SyncError("the timer's log changed during the sync (identity %s, now %s): nothing of the "
+                                "new log was acknowledged; sync again" % (archive.log_label(log_id),
+                                                                          archive.log_label(lid)))
+            if b > s:
+                # reclaimed on the timer meanwhile (another host acknowledged them): not here
+                not_on_timer += b - s
+                s = b
+                ack_from = max(ack_from, b)
+            top = recs[-1].seq if recs else nxt - 1
+            have = set(r.seq for r in recs)
+            gap = [q for q in range(s, top + 1) if q not in have]
             with archive.transaction(conn):
-                n, d = archive.store_records(conn, device_id, [record_dict(r) for r in recs])
+                n, d = archive.store_records(conn, device_id, [record_dict(r) for r in recs], log_id)
+                if gap:
+                    archive.note_gaps(conn, device_id, log_id, gap)
             new += n
             dup += d
+            missing += gap
             batches += 1
-            have = archive.last_seq(conn, device_id)
-            client.ack(recs[-1].seq)          # only after the COMMIT above
-            s = recs[-1].seq + 1
+            if recs or gap:
+                last_stored = top
+            s = top + 1
+            if bar is None and show and (nxt - base >= PROGRESS_MIN_RECORDS or time.monotonic() - t0 > PROGRESS_AFTER_S):
+                bar = TextProgress(nxt - base, "sync %s" % device_id, stream, link=_link_text(client), t0=t0)
             if bar is not None:
-                bar.update(s - done0)
-            if s >= nxt:
-                break
-        # records the archive holds but the timer never heard were confirmed (killed between
-        # commit and ack): confirm them now so the timer can reclaim the space
-        if base is not None and have >= base and have < nxt:
-            client.ack(have)
+                bar.total = max(1, nxt - base)
+                bar.update(s - base)
+            if last_stored is not None and (last_stored - ack_from + 1 >= ack_every or s >= nxt):
+                ans = _ack(client, conn, device_id, log_id, ack_from, last_stored)
+                acks += 1
+                confirmed = ans["confirmed_seq"]
+                ack_from = ans["base_seq"]
+                last_stored = None
     finally:
         if bar is not None:
             bar.close()
     with archive.transaction(conn):
-        archive.record_sync(conn, device_id, started, new, dup)
-    return {"new": new, "duplicates": dup, "device": device_id, "last_seq": have, "batches": batches,
-            "not_on_timer": skipped}
+        archive.record_sync(conn, device_id, started, new, dup, log_id, len(missing))
+    return {"new": new, "duplicates": dup, "device": device_id, "log_id": log_id, "origin_seq": origin,
+            "last_seq": archive.last_seq(conn, device_id, log_id), "batches": batches, "acks": acks,
+            "confirmed_seq": confirmed, "missing_on_timer": len(missing), "missing_seqs": missing,
+            "not_on_timer": not_on_timer}
+
+
+def verify(conn, device_id, log_id, first_seq, last_seq):
+    """Read back what the archive holds for ``first_seq..last_seq`` through a FRESH read-only
+    connection to the file (not this process's cache): ``PRAGMA quick_check``, then the CRC-32
+    of the stored records (``archive.range_proof``).  ``ArchiveDamaged`` when the check fails."""
+    path = getattr(conn, "path", None)
+    if not path or path == ":memory:":
+        probe = conn
+    else:
+        import sqlite3
+        from urllib.parse import quote
+        import os
+        probe = sqlite3.connect("file:%s?mode=ro" % quote(os.path.abspath(path)), uri=True, timeout=10.0)
+    try:
+        problems = archive.quick_check(probe)
+        if problems:
+            raise archive.ArchiveDamaged(archive.damaged_message(path, problems, before_ack=True))
+        try:
+            return archive.range_proof(probe, device_id, log_id, first_seq, last_seq)
+        except archive.ArchiveError as exc:
+            raise archive.ArchiveDamaged("%s; not acknowledged: the timer keeps these records" % exc)
+        except Exception as exc:  # sqlite3.DatabaseError on a malformed page
+            raise archive.ArchiveDamaged(archive.damaged_message(path, [exc], before_ack=True))
+    finally:
+        if probe is not conn:
+            probe.close()
+
+
+def _ack(client, conn, device_id, log_id, first, last):
+    """Acknowledge ``first..last`` with the proof read back from the archive."""
+    from host.timer_client import DeviceRefused
+    from device import protocol as P
+    crc, _ = verify(conn, device_id, log_id, first, last)
+    try:
+        return client.ack(log_id, first, last, crc)
+    except DeviceRefused as exc:
+        if exc.code == P.E_PROOF:
+            raise SyncError("the timer refused the acknowledgement: the records %d..%d of log %s in the archive "
+                            "differ from those on the timer (%s); the timer keeps them"
+                            % (first, last, archive.log_label(log_id), exc.message))
+        if exc.code == P.E_IDENTITY:
+            raise SyncError("the timer's log changed during the sync (%s): the timer keeps its records; sync again"
+                            % exc.message)
+        raise
 
 
 def _isatty(stream):
@@ -153,13 +245,16 @@ def _isatty(stream):
         return False
 
 
-def sync_port(port, db_path, progress=None, timeout=1.0, retries=6, batch=None):
-    """Open the timer on ``port`` and the archive at ``db_path``, sync, close both."""
+def sync_port(port, db_path, progress=None, timeout=1.0, retries=4, batch=None, new=False, stream=None):
+    """Open the archive at ``db_path`` for writing (checked first: nothing is asked of the timer
+    when the archive cannot take its records), then the timer on ``port``; sync; close both."""
     from host.timer_client import TimerClient
-    conn = archive.connect(db_path)
+    conn = archive.connect(db_path, new=new)
     try:
         with TimerClient(port, timeout=timeout, retries=retries) as client:
-            return sync(client, conn, progress, batch)
+            res = sync(client, conn, progress, batch, stream)
+            res["link"] = client.link_figures()
+            return res
     finally:
         conn.close()
 

@@ -74,7 +74,7 @@ def test_sim_command_prints_port_first_and_stops_on_sigterm(tmp_path):
         port = proc.stdout.readline().strip()
         assert port.startswith("/dev/")
         with TimerClient(port, timeout=0.5, retries=10) as c:
-            assert c.handshake()["protocol"] == 1
+            assert c.handshake()["protocol"] == 2
             deadline = time.time() + 60
             while c.status()["log"]["last_seq"] != 3:
                 assert time.time() < deadline, "the virtual timer did not press its 3 contacts"

@@ -135,7 +135,7 @@ def test_csv_from_archive(tmp_path):
     rows = read_csv(paths[0])
     assert rows == [{"device": "T-9", "seq": "0", "utc": "2031-05-14T07:50:00.250000Z", "body": "sun",
                      "limb": "lower", "session_no": "1", "image": "", "void": "1", "time_quality": "locked",
-                     "time_uncertainty_us": "300"}]
+                     "time_uncertainty_us": "300", "log_id": "legacy"}]
     fx = read_csv(paths[1])
     assert fx[0]["lat"] == "41°18.00'N" and fx[0]["lon"] == "009°51.00'W" and fx[0]["rejected"] == "2"
     root = ET.parse(paths[2]).getroot()
@@ -145,7 +145,8 @@ def test_csv_from_archive(tmp_path):
     assert gj["features"][-1]["properties"]["kind"] == "dr_track"
     out = exports.archive_json(conn)
     assert out["contacts"][0]["utc"] == "2031-05-14T07:50:00.250000Z"
-    assert {k: out["contacts"][0][k] for k in ("seq", "device", "void")} == {"seq": 0, "device": "T-9", "void": True}
+    assert {k: out["contacts"][0][k] for k in ("seq", "device", "void", "log_id")} == \
+        {"seq": 0, "device": "T-9", "void": True, "log_id": "legacy"}
     assert out["fixes"][0]["lat_deg"] == 41.30
 
 

@@ -153,7 +153,10 @@ def test_cli_push_track_over_a_pseudo_terminal(tmp_path):
     assert "the timer now shows the next contact: i01 sun lower limb, rising, at 2030-10-20T19:41:0" in p.stdout
     from host.cautions import CAUTION_TEXT
     assert p.stdout.rstrip("\n").endswith(CAUTION_TEXT)
-    assert q.stdout.startswith("timer LC-SIM1: 0 new record(s)") and q.stdout.rstrip("\n").endswith(CAUTION_TEXT)
+    lines = q.stdout.splitlines()
+    assert lines[0] == "created a new archive at %s" % (tmp_path / "a.sqlite3")
+    assert lines[1].startswith("timer LC-SIM1 log %08x: 0 new record(s)" % vt.fw.log.log_id)
+    assert q.stdout.rstrip("\n").endswith(CAUTION_TEXT)
 
 
 def test_cli_refuses_a_track_without_observer_before_opening_the_port(tmp_path):
