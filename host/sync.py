@@ -288,12 +288,10 @@ def track_bytes(data):
     file (bytes): the DR track WITH the observer, built by ``device.onboard.track_file`` and checked by
     ``device.onboard.parse_track`` (the rules the timer applies).  The observer is required: without
     the height of eye the timer cannot reduce on board."""
-    import json
     from device.onboard import TRACK_FORMAT, parse_track, track_file
-    try:
-        doc = json.loads(bytes(data).decode("utf-8"))
-    except (UnicodeDecodeError, ValueError) as exc:
-        raise SyncError("track file: not JSON (%s)" % exc)
+    from engine import limits
+    doc = limits.load_json(bytes(data), "track file", SyncError)    # size, UTF-8, JSON, nesting
+    limits.check_tree(doc, SyncError)
     if not isinstance(doc, dict):
         raise SyncError("track file: expected a JSON object (a %s or %s file)" % TRACK_FORMATS)
     fmt = doc.get("format")

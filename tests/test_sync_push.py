@@ -99,7 +99,9 @@ def test_push_before_the_timer_has_time_says_so():
 
 
 @pytest.mark.parametrize("text, message", [
-    (b"not json", "track file: not JSON"),
+    (b"not json", "track file: not valid JSON"),
+    (b"[" * 5000 + b"]" * 5000, "track file: nested deeper than 32 levels"),
+    (b'{"format": "limbclock-track/1", "lat_deg": 1e999}', "lat_deg: must be a finite number"),
     (b"[1, 2]", "track file: expected a JSON object"),
     (b'{"format": "limbclock-instrument/1"}', "format 'limbclock-instrument/1', expected"),
     (b'{"utc": "2030-10-20T18:00:00Z", "lat_deg": 1, "lon_deg": 2}', "track file: no 'format'"),
