@@ -148,16 +148,16 @@ def fmt_position(lat_deg, lon_deg):
 
 
 def iter_records(log, chunk=16):
-    """The log's records one by one, read ``chunk`` at a time (the whole log never sits in the heap)."""
-    from device.log import unpack_records
-    s = log.base_seq
-    while s < log.next_seq:
-        batch = unpack_records(log.read_raw(s, chunk))
-        if not batch:
-            return
-        for r in batch:
-            yield r
-        s = batch[-1].seq + 1
+    """The log's records one by one, streamed (``Log.iter_records``: the whole log never sits in the
+    heap; damaged records are skipped).  ``chunk`` is kept for callers of the earlier signature."""
+    return log.iter_records()
+
+
+def _tick():
+    """A safe point between phases of the on-board work (``engine.coop``): the timer's hook serves
+    its inputs here too, not only inside the engine's model evaluations."""
+    from engine import coop
+    coop.tick()
 
 
 class Onboard:
@@ -294,8 +294,9 @@ class Onboard:
         """The ``limbclock-session/1`` text of session ``session_no`` from ``records()`` (a callable
         returning an iterator of log records, read twice: voids first): its contacts
         (voided ones and those without a time left out), the instrument, track and observer."""
-        from device.log import CONTACT, VOID, BODY_NAMES, LIMB_NAMES
+        from device.log import CONTACT, VOID, STAMP, BODY_NAMES, LIMB_NAMES
         self._load()
+        _tick()
         if self.images is None:
             raise OnboardError(self.problem or "no instrument: push it")
         if self.track is None:
@@ -303,19 +304,29 @@ class Onboard:
         if self.observer is None:
             raise OnboardError("no eye height: push track+observer")
         voided = []
+        stamped = {}                # a contact written before the clock had time -> its late stamp
         for r in records():
+            _tick()
             if r.kind == VOID:
                 voided.append(r.ref_seq)
+            elif r.kind == STAMP and r.time_state != 0:
+                stamped[r.ref_seq] = (r.utc_us, r.uncertainty_us)
         parts = []
         for r in records():
-            if r.kind != CONTACT or r.session != session_no or r.seq in voided or r.time_state == 0:
+            _tick()
+            if r.kind != CONTACT or r.session != session_no or r.seq in voided:
                 continue
-            sig = 0.0 if r.uncertainty_us == UNC_UNKNOWN else r.uncertainty_us / 1e6
-            if r.uncertainty_us == UNC_UNKNOWN or sig > MAX_SIGMA_S:
+            utc_us, unc = r.utc_us, r.uncertainty_us
+            if r.time_state == 0:
+                if r.seq not in stamped:
+                    continue
+                utc_us, unc = stamped[r.seq]
+            sig = 0.0 if unc == UNC_UNKNOWN else unc / 1e6
+            if unc == UNC_UNKNOWN or sig > MAX_SIGMA_S:
                 continue
             # no extra keys: each would cost a dict per contact in the parsed session
             parts.append('{"utc":"%s","body":"%s","limb":"%s","image":null,"sigma_s":%s}'
-                         % (format_utc(r.utc_us, 6), BODY_NAMES[r.body], LIMB_NAMES[r.limb], repr(sig)))
+                         % (format_utc(utc_us, 6), BODY_NAMES[r.body], LIMB_NAMES[r.limb], repr(sig)))
         if len(parts) < MIN_CONTACTS:
             raise OnboardError("%d contact(s): need %d" % (len(parts), MIN_CONTACTS))
         inst = self.inst_session
@@ -331,8 +342,10 @@ class Onboard:
         try:
             from engine.session import parse_session
             text = self.session_text(records, session_no)
+            _tick()
             s = parse_session(text, self.alm)
             text = None             # the text is not held during the reduction (a few KB)
+            _tick()
             import engine
             r = engine.reduce_session(s, self.alm)
             s = None
