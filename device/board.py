@@ -4,9 +4,15 @@ Importable anywhere: without ``machine`` (CPython, the WebAssembly port) the
 module loads and ``Board`` raises ``BoardError`` when constructed.
 
 Interrupt handlers only store ``time.ticks_us()`` into preallocated ring
-buffers (no allocation in a hard IRQ); the main loop drains them.  Pin
-numbers, UART ids and the flash directory are arguments, so one build serves
-several boards::
+buffers of ``hal.RING`` edges (no allocation in a hard IRQ); the main loop drains
+them.  A full ring drops the new edge and counts it (``ring_overflows``; the
+firmware shows it).  ``ticks_ms`` is the slower counter that keeps the tick count
+through a long stall, ``rtc_us`` the RTC (``time.time``, whole seconds on most
+ports; it runs through a reset, not through a power loss without a backup
+battery), ``unique_id`` the chip's id (the device id derives from it), and a
+hardware watchdog (``machine.WDT``, ``watchdog_ms``; None: none) is fed by
+``feed_watchdog`` after every loop pass.  Pin numbers, UART ids and the flash
+directory are arguments, so one build serves several boards::
 
     from device.board import Board
     from device.firmware import Firmware
@@ -24,9 +30,7 @@ try:
 except ImportError:                      # pragma: no cover - every port we target has array
     array = None
 
-from device.hal import Hardware, FileStore, TICKS_PERIOD
-
-RING = 16                                # edges buffered between two loop passes
+from device.hal import Hardware, FileStore, TICKS_PERIOD, RING
 
 
 class BoardError(OSError):
@@ -34,13 +38,14 @@ class BoardError(OSError):
 
 
 class _Ring:
-    __slots__ = ("t", "v", "head", "tail")
+    __slots__ = ("t", "v", "head", "tail", "lost")
 
     def __init__(self):
         self.t = array("i", [0] * RING)
         self.v = array("b", [0] * RING)
         self.head = 0
         self.tail = 0
+        self.lost = 0                    # edges dropped because the ring was full
 
     def put(self, tick, value):          # called in the IRQ: no allocation
         nxt = (self.head + 1) % RING
@@ -48,6 +53,8 @@ class _Ring:
             self.t[self.head] = tick
             self.v[self.head] = value
             self.head = nxt
+        else:
+            self.lost += 1
 
     def drain(self):
         out = []
@@ -64,10 +71,13 @@ class Board(Hardware):
     ticks_period = TICKS_PERIOD
 
     def __init__(self, button_pin=14, pps_pin=15, gps_uart=1, gps_baud=9600, buzzer_pin=None,
-                 flash_dir="/lc", display=None):
+                 flash_dir="/lc", display=None, watchdog_ms=8000):
         if machine is None:
             raise BoardError("device.board needs MicroPython's machine module (use device.sim on a computer)")
         self.store = FileStore(flash_dir)
+        self.wdt = None
+        if watchdog_ms and hasattr(machine, "WDT"):
+            self.wdt = machine.WDT(timeout=watchdog_ms)
         self._button = _Ring()
         self._pps = _Ring()
         self.button_pin = machine.Pin(button_pin, machine.Pin.IN, machine.Pin.PULL_UP)
@@ -95,6 +105,22 @@ class Board(Hardware):
 
     def ticks_us(self):
         return time.ticks_us()
+
+    def ticks_ms(self):
+        return time.ticks_ms()
+
+    def rtc_us(self):
+        return int(time.time()) * 1000000
+
+    def ring_overflows(self):
+        return (self._button.lost, self._pps.lost)
+
+    def feed_watchdog(self):
+        if self.wdt is not None:
+            self.wdt.feed()
+
+    def unique_id(self):
+        return bytes(machine.unique_id())
 
     def button_events(self):
         return [(t & (TICKS_PERIOD - 1), v == 1) for t, v in self._button.drain()]

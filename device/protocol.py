@@ -107,6 +107,8 @@ class Protocol:
             except Refused as e:
                 msg = e.message.encode()[:200]
                 reply = frame.encode(ERROR, seq, bytes((e.code,)) + msg)
+            except OSError as e:         # the flash refused a file chunk (full): said, not fatal
+                reply = frame.encode(ERROR, seq, bytes((E_FILE,)) + ("storage: %s" % (e,)).encode()[:200])
             self.last_key = key
             self.last_reply = reply
             self.last_tick = now

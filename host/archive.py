@@ -345,6 +345,29 @@ def store_records(conn, device_id, records):
     return new, dup
 
 
+# -- late stamps (the timer's STAMP records; owned with device/log.py) ------------------------------
+
+def apply_stamps(conn, device_id):
+    """Give the timer's untimed contacts (quality ``none``: logged before it had any time, their
+    ``utc_us`` the oscillator's tick) the UTC of the later ``stamp`` record that names them
+    (``stamps_seq``), with its quality and uncertainty.  Call inside a transaction, after
+    ``store_records``; idempotent (a contact already stamped is left alone).  Returns how many
+    contacts got their time."""
+    n = 0
+    rows = conn.execute("SELECT utc_us, payload FROM events WHERE device_id=? AND kind='stamp' ORDER BY seq",
+                        (device_id,)).fetchall()
+    for utc_us, payload in rows:
+        p = json.loads(payload)
+        target, quality, unc = p.get("stamps_seq"), p.get("quality"), p.get("uncertainty_us")
+        if not isinstance(target, int) or not isinstance(quality, str) or quality == "none" or \
+                not isinstance(unc, int) or not isinstance(utc_us, int):
+            continue
+        cur = conn.execute("UPDATE contacts SET utc_us=?, quality=?, uncertainty_us=? WHERE device_id=? AND seq=? "
+                           "AND quality='none'", (utc_us, quality, unc, device_id, target))
+        n += cur.rowcount
+    return n
+
+
 def record_sync(conn, device_id, started_us, new, duplicates):
     conn.execute("INSERT INTO syncs (device_id, started_us, finished_us, new, duplicates) VALUES (?,?,?,?,?)",
                  (device_id, started_us, now_us(), new, duplicates))

@@ -281,3 +281,44 @@ def test_state_directory_problems_name_the_directory(tmp_path):
         VirtualTimer(contacts=[], state_dir=str(f))
     with pytest.raises(SimError, match="session file .*none.json not found"):
         VirtualTimer(session=str(tmp_path / "none.json"))
+
+
+# -- the host understands what the timer now writes ----------------------------------------------------
+
+def test_sync_gives_the_archives_contacts_their_late_stamps(tmp_path):
+    from host import archive, sync
+    from host.timer_client import TimerClient
+    t0 = T
+    cs = [(t0 + 10000000, "sun", "lower"), (t0 + 20500000, "sun", "lower"), (t0 + 90000000, "sun", "lower")]
+    vt = VirtualTimer(contacts=cs, start_us=t0, first_fix_us=t0 + 60000000)
+    vt.advance_to(t0 + 40000000)                   # synced once before the clock had time
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    sync.sync(TimerClient(vt.loopback()), conn, progress=False)
+    rows = archive.contacts(conn)
+    assert [r["quality"] for r in rows] == ["none", "none"]
+    vt.run_contacts()
+    res = sync.sync(TimerClient(vt.loopback()), conn, progress=False)
+    assert res["new"] == 3                         # two stamps and the third contact
+    rows = sorted(archive.contacts(conn), key=lambda r: r["seq"])
+    assert [(r["seq"], r["quality"]) for r in rows] == [(1, "holdover"), (2, "holdover"), (5, "locked")]
+    for r, (t, _, _) in zip(rows, cs):
+        assert abs(r["utc_us"] - t) <= max(r["uncertainty_us"], 1000) and r["uncertainty_us"] < 5000
+    stamps = conn.execute("SELECT seq, payload FROM events WHERE kind='stamp' ORDER BY seq").fetchall()
+    assert [s[0] for s in stamps] == [3, 4] and '"stamps_seq": 1' in stamps[0][1]
+    with archive.transaction(conn):
+        assert archive.apply_stamps(conn, vt.device_id) == 0          # idempotent
+
+
+def test_sync_takes_every_intact_record_around_a_damaged_one(tmp_path):
+    from host import archive, sync
+    from host.timer_client import TimerClient
+    cs = presses(12, step_us=3000000)
+    vt = VirtualTimer(contacts=cs, ticks_period=P22)
+    vt.run_contacts()
+    vt.base_store.files["log.bin.00000001"][33 * 5 + 9] ^= 0x40          # seq 6 damaged on flash
+    vt.fw.log.open()                                                      # as at the next start-up
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    res = sync.sync(TimerClient(vt.loopback()), conn, progress=False)
+    seqs = [r["seq"] for r in sorted(archive.contacts(conn), key=lambda r: r["seq"])]
+    assert seqs == [1, 2, 3, 4, 5, 7, 8, 9, 10, 11, 12] and res["last_seq"] == 12
+    assert vt.fw.log.confirmed_seq == 12 and vt.fw.log.records() == []
