@@ -20,6 +20,13 @@ times from DE421 + ERFA), also all 42, and the labelled variant (no identificati
    assumed board rate (see ``BOARD_LOOP_PER_S``).
 3. Accuracy: the WebAssembly port against CPython (same code, double precision in both), and the
    virtual timer's on-board fix against the truth (the session's ``truth``).
+4. The timer's loop while it reduces (MicroPython unix port): the ``fix`` gesture runs in one loop pass
+   whose engine work calls the firmware's coop hook (``engine.coop``) at every model evaluation; the
+   hook runs a service pass (inputs, stamps, log, watchdog) at most every 5 ms.  Measured: the longest
+   interval between two service passes (the loop stall), during the fix of 30 contacts and during a
+   next-contact plan, and the longest stretch between two model evaluations.  Scaled to a board by a
+   portable count: the stall expressed in iterations of the reference float loop (``LOOP``) timed on the
+   same port, divided by an assumed board rate for that loop (``BOARD_LOOP_PER_MHZ``).
 """
 import json
 import os
@@ -35,6 +42,114 @@ TESTS = os.path.join(ROOT, "tests")
 BOARD_LOOP_PER_S = (50000, 150000)
 LOOP = ("import time\nx = 0.0\nt0 = time.ticks_ms()\nfor i in range(200000):\n    x = x * 0.999 + 1.5\n"
         "print(time.ticks_diff(time.ticks_ms(), t0))\n")
+# The same assumption per MHz of CPU clock (the range above at 100 and 200 MHz): 500-750 iterations per
+# second per MHz [from memory]; a board's cache, flash wait states and FPU move it within that range.
+BOARD_LOOP_PER_MHZ = (500, 750)
+BOARDS_MHZ = (125, 240)
+
+STALL_SCRIPT = r'''
+import json, time
+from device import hal, log as L
+from device.firmware import Firmware
+from engine import coop
+import engine
+from engine import almanac, session, fix, identify, model, plan, instrument, corrections, sphere
+st = hal.FileStore(%(root)r)
+st.replace("slot_instrument", %(inst)r)
+st.replace("slot_track", %(track)r)
+class HW(hal.Hardware):
+    store = st
+    def ticks_us(self):
+        return time.ticks_us()
+    def ticks_ms(self):
+        return time.ticks_ms()
+lg = L.Log(st, capacity=65536)
+for t_us, body, limb in %(contacts)r:
+    lg.append(L.CONTACT, t_us, 1, 30, body, limb, 1)
+lg = None
+marks = []
+class F(Firmware):
+    def _service(self):
+        n = self.service_passes
+        Firmware._service(self)
+        if self.service_passes != n:
+            marks.append((time.ticks_us(), coop.ticks))
+fw = F(HW())
+fw.onboard._load()
+fw.onboard.alm.position("sun", %(t0)d)
+def longest(ms):
+    best = (0, 0)
+    for i in range(1, len(ms)):
+        d = time.ticks_diff(ms[i][0], ms[i - 1][0])
+        if d > best[0]:
+            best = (d, ms[i][1] - ms[i - 1][1])
+    return best
+gap = [0, 0]
+def between():
+    t = time.ticks_us()
+    d = time.ticks_diff(t, gap[0])
+    if gap[0] and d > gap[1]:
+        gap[1] = d
+    gap[0] = t
+coop.set_hook(between)
+t0 = time.ticks_us()
+fw.onboard.reduce(lambda: fw.log.iter_records(), 1)
+plain = time.ticks_diff(time.ticks_us(), t0)
+coop.set_hook(None)
+fw.onboard.fix = None
+fw.fix_requested = True
+k0 = coop.ticks
+marks.append((time.ticks_us(), coop.ticks))
+t0 = time.ticks_us()
+fw.poll()
+marks.append((time.ticks_us(), coop.ticks))
+out = {"plain_us": plain, "between_ticks_us": gap[1], "fix_us": time.ticks_diff(time.ticks_us(), t0),
+       "ticks": coop.ticks - k0, "passes": len(marks) - 2, "used": fw.onboard.fix and fw.onboard.fix["contacts_used"]}
+out["stall_us"], out["stall_ticks"] = longest(marks)
+marks[:] = [(time.ticks_us(), coop.ticks)]
+prev = coop.set_hook(fw._service)
+fw.onboard.update(%(t0)d - 3600000000, 0, "lower")
+coop.set_hook(prev)
+marks.append((time.ticks_us(), coop.ticks))
+out["plan_stall_us"] = longest(marks)[0]
+t0 = time.ticks_us()
+for j in range(1000):
+    fw.svc_raw = (fw.svc_raw - 10000) %% hal.TICKS_PERIOD
+    fw._service()
+out["pass_us"] = time.ticks_diff(time.ticks_us(), t0) / 1000.0
+t0 = time.ticks_us()
+for j in range(1000):
+    fw._service()
+out["hook_us"] = time.ticks_diff(time.ticks_us(), t0) / 1000.0
+x = 0.0
+t0 = time.ticks_us()
+for j in range(200000):
+    x = x * 0.999 + 1.5
+out["loop_us"] = time.ticks_diff(time.ticks_us(), t0)
+print(json.dumps(out))
+print("ARENA-OK")
+'''
+
+
+def stall_figures(mpu, S, runs=3):
+    """The loop stall while the timer reduces, on the unix port (worst of ``runs``), and its board estimate."""
+    from device.sim import conditions_files
+    from engine.timescale import parse_utc
+    doc = S.session_doc("sun_moon", 30)
+    files = conditions_files(doc)
+    contacts = [(parse_utc(c["utc"]), 0 if c["body"] == "sun" else 1, 0 if c["limb"] == "lower" else 1)
+                for c in doc["contacts"]]
+    worst = None
+    for _ in range(runs):
+        code = STALL_SCRIPT % {"root": tempfile.mkdtemp() + "/lc", "inst": files["instrument"],
+                               "track": files["track"], "contacts": contacts, "t0": contacts[0][0]}
+        ok, out = mpu.run_unix(code, heap_bytes=2 << 20)
+        if not ok:
+            raise AssertionError(out[-1500:])
+        r = S.last_json(out)
+        if worst is None or r["stall_us"] > worst["stall_us"]:
+            worst = r
+    return worst
 
 
 def _tools():
@@ -126,6 +241,31 @@ def run():
           % (plan["ms"], plan["ms"] * fast / 1000.0, plan["ms"] * slow / 1000.0))
 
     print("3. accuracy")
+    _accuracy(S, mp, ref, distance_nm)
+    print("4. the timer's loop while it reduces (MicroPython unix port, worst of 3 runs)")
+    if not mpu.available():
+        print("   unix port not installed: skipped")
+        return
+    r = stall_figures(mpu, S)
+    rate = 200000 / (r["loop_us"] / 1e6)
+    cost = r["passes"] * r["pass_us"] + r["ticks"] * r["hook_us"]
+    print("   fix of 30 contacts in one loop pass: %.1f s, %d model evaluations, %d service passes; a service pass"
+          " costs %.0f us and a hook call that finds nothing to do %.1f us: %.0f ms in all (%.1f %%)"
+          % (r["fix_us"] / 1e6, r["ticks"], r["passes"], r["pass_us"], r["hook_us"], cost / 1000.0,
+             100.0 * cost / r["fix_us"]))
+    print("   longest stall between service passes: %.1f ms during the fix (%d model evaluations in it), %.1f ms"
+          " during a plan; longest stretch between two model evaluations %.1f ms"
+          % (r["stall_us"] / 1000.0, r["stall_ticks"], r["plan_stall_us"] / 1000.0, r["between_ticks_us"] / 1000.0))
+    units = r["stall_us"] / 1e6 * rate
+    print("   portable count: the reference loop runs %.0f iterations/s here, so the stall is %.0f iterations"
+          % (rate, units))
+    for mhz in BOARDS_MHZ:
+        lo, hi = [mhz * k for k in BOARD_LOOP_PER_MHZ]
+        print("   on a %d MHz board (%d-%d iterations/s assumed): longest stall %.2f-%.2f s"
+              % (mhz, lo, hi, units / hi, units / lo))
+
+
+def _accuracy(S, mp, ref, distance_nm):
     print("   WebAssembly port vs CPython: %.5f nmi, used/rejected %d/%d vs %d/%d"
           % (distance_nm(mp["lat_deg"], mp["lon_deg"], ref["lat_deg"], ref["lon_deg"]), mp["used"],
              mp["rejected"], ref["used"], ref["rejected"]))
