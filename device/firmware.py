@@ -61,7 +61,7 @@ from device.hal import TickExtender, ticks_diff
 from device.log import (Log, LogError, LogFull, CONTACT, VOID, SESSION, SETTINGS, TIME_SET, FAULT, STAMP,
                         BODY_NAMES, LIMB_NAMES)
 from device.nmea import Parser
-from device.onboard import Onboard
+from device.onboard import Onboard, iter_records
 from device.protocol import Protocol
 from engine.timescale import format_utc
 
@@ -571,7 +571,7 @@ class Firmware:
         self.busy = True
         prev = coop.set_hook(self._service)
         try:
-            fix = self.onboard.reduce(lambda: log.iter_records(), self.session)
+            fix = self.onboard.reduce(lambda: iter_records(log), self.session)
         finally:
             coop.set_hook(prev)
             self.busy = False
