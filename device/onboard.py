@@ -16,10 +16,13 @@ The timer holds three files pushed by the host (``device/PROTOCOL.md``, slots):
 ``limbclock plan`` uses) for the limb selected on the timer, recomputing only when the files
 change, the body/limb changes, the predicted contact has passed, or every ``PLAN_EVERY_US``.
 ``Onboard.reduce`` builds a ``limbclock-session/1`` text from the current session's contacts
-in the log (voided ones and contacts without a time left out) and the files, and calls
+in the log (voided ones left out; a contact logged before the clock had time takes the UTC of
+the later STAMP record that names it, and is left out without one) and the files, and calls
 ``engine.reduce_session``; the result is cut down to ``Onboard.fix`` (a small dict, also in
 the timer's status).  Every problem becomes a short display message, never an exception out
-of the main loop.
+of the main loop.  Between its phases (each record read, after the text, after parsing) it
+calls ``engine.coop.tick()`` as the engine does at every model evaluation, so the timer's
+hook keeps serving its inputs through the whole reduction (``device/firmware.py``).
 
 Memory: the engine modules are imported lazily (a board freezes them into flash, where their
 bytecode takes no heap), the session text is dropped once parsed, and only the summary of a
