@@ -667,14 +667,16 @@ class Log:
     def read_raw(self, from_seq, max_records):
         """Packed records from ``from_seq`` (clamped to the first held), at most ``max_records``,
         in seq order; damaged records are left out (a gap in the seqs)."""
+        out = b""
+        n = 0
         if max_records <= 0:
-            return b""
-        out = []
+            return out
         for seq, raw in self._iter(from_seq):
-            out.append(raw)
-            if len(out) >= max_records:
+            out += raw
+            n += 1
+            if n >= max_records:
                 break
-        return b"".join(out)
+        return out
 
     def range_crc(self, from_seq, last_seq):
         """CRC-32 of the packed records held with ``from_seq`` <= seq <= ``last_seq`` (in seq order,
