@@ -77,6 +77,7 @@ LABEL_STALE_US = 250000       # labels read after a longer pass have no usable r
 TIME_SAVE_US = 600000000      # the clock's snapshot is saved this often (and at lock changes)
 RESTORE_MAX_US = 7 * 86400 * 1000000    # an RTC gap longer than this restores the drift only
 FAULT_LOG_US = 600000000      # at most one FAULT record per kind this often
+ENOSPC = 28                   # the storage's "no space left" error number
 
 # fault kinds (FAULT records: image = kind, ref_seq = the fault count)
 F_LOOP = 1
@@ -395,8 +396,9 @@ class Firmware:
             self._held_message()
 
     def _held_message(self):
-        self.message = "%s %d held" % ("LOG FULL: SYNC!" if self.storage_error == "log full" else "STORAGE ERROR:",
-                                        len(self.pending))
+        what = {"log full": "LOG FULL: SYNC!", "flash full": "FLASH FULL: SYNC!"}.get(self.storage_error,
+                                                                                 "STORAGE ERROR:")
+        self.message = "%s %d held" % (what, len(self.pending))
         self.dirty = True
 
     def _resolve(self, now):
@@ -474,7 +476,12 @@ class Firmware:
     def _blocked(self, err, now):
         """The log refused a write: hold the entries, say so once, retry later."""
         first = self.storage_error is None
-        self.storage_error = "log full" if isinstance(err, LogFull) else "storage error"
+        if isinstance(err, LogFull):
+            self.storage_error = "log full"
+        elif getattr(err, "errno", None) == ENOSPC:
+            self.storage_error = "flash full"
+        else:
+            self.storage_error = "storage error"
         self._held_message()
         self.fault = str(err)
         self.last_fault = self.fault

@@ -115,7 +115,12 @@ class LogFull(LogError):
 
 
 class LogWriteError(LogError):
-    """The storage refused a write (flash full, I/O error); nothing was acknowledged."""
+    """The storage refused a write (flash full, I/O error); nothing was acknowledged.  ``errno`` is the
+    storage's error number (28, ENOSPC: the flash is full), or None."""
+
+    def __init__(self, message, errno=None):
+        LogError.__init__(self, message)
+        self.errno = errno
 
 
 class Record:
@@ -162,6 +167,14 @@ class Record:
 
     def __repr__(self):
         return "Record(%r)" % (self.to_dict(),)
+
+
+def _errno(e):
+    """The error number of an ``OSError`` (MicroPython puts it in ``args[0]``)."""
+    n = getattr(e, "errno", None)
+    if n is None and e.args and isinstance(e.args[0], int):
+        n = e.args[0]
+    return n
 
 
 def _seq_at(data, i):
@@ -535,7 +548,7 @@ class Log:
             if new and start not in segs:
                 segs.append(start)
                 self.last_slots = 0
-            raise LogWriteError("storage write failed (%s): record not saved" % (e,))
+            raise LogWriteError("storage write failed (%s): record not saved" % (e,), _errno(e))
         self.writes += 1
         if new:
             segs.append(start)
@@ -560,7 +573,7 @@ class Log:
                 self.segs.pop()
                 self.last_slots = SEG_RECORDS
         except OSError as e:
-            raise LogWriteError("storage write failed (%s) while repairing the log's tail" % (e,))
+            raise LogWriteError("storage write failed (%s) while repairing the log's tail" % (e,), _errno(e))
         self.tail_dirty = False
 
     def _compact_first(self):
@@ -588,7 +601,7 @@ class Log:
             st.remove(self._seg(s))
         except OSError as e:
             st.remove(part)
-            raise LogWriteError("storage write failed (%s) while reclaiming space" % (e,))
+            raise LogWriteError("storage write failed (%s) while reclaiming space" % (e,), _errno(e))
         self.writes += 1
         new_size = self.store.size(self._seg(new))
         segs[0] = new
@@ -619,7 +632,7 @@ class Log:
         try:
             self._write_heads()
         except OSError as e:
-            raise LogWriteError("storage write failed (%s) while acknowledging" % (e,))
+            raise LogWriteError("storage write failed (%s) while acknowledging" % (e,), _errno(e))
         segs = self.segs
         while segs:
             last = len(segs) == 1

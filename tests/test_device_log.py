@@ -434,7 +434,8 @@ def test_flash_too_small_for_the_log_itself():
     vt = VirtualTimer(contacts=[(t, "sun", "lower")], storage_bytes=10)
     vt.run_contacts()
     st = vt.fw.status()
-    assert st["storage"]["held"] == 1 and vt.fw.lines[3].startswith("STORAGE ERROR")
+    assert st["storage"]["held"] == 1 and vt.fw.lines[3] == "FLASH FULL: SYNC! 1 held"
+    assert st["storage"]["error"] == "flash full"
     assert st["pending"] == 1
 
 
