@@ -27,11 +27,6 @@ def contacts_of(vt):
     return [r for r in vt.fw.log.records() if r.kind == L.CONTACT]
 
 
-def truth_of(vt, r):
-    """The true time of the press a record was stamped for (the nearest scheduled contact)."""
-    return min((c[0] for c in vt.world_contacts), key=lambda t: abs(t - r.utc_us))
-
-
 # -- receivers --------------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("names_next, delays, receiver", [
