@@ -107,7 +107,10 @@ class Protocol:
             except Refused as e:
                 msg = e.message.encode()[:200]
                 reply = frame.encode(ERROR, seq, bytes((e.code,)) + msg)
-            except OSError as e:         # the flash refused a file chunk (full): said, not fatal
+            except OSError as e:         # the flash refused a file chunk (full): said, not fatal,
+                if self.push is not None:     # and the partial file does not keep the flash full
+                    self.fw.store.remove("slot_%s.part" % self.push[0])
+                    self.push = None
                 reply = frame.encode(ERROR, seq, bytes((E_FILE,)) + ("storage: %s" % (e,)).encode()[:200])
             self.last_key = key
             self.last_reply = reply

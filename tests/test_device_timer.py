@@ -317,3 +317,17 @@ def test_sync_takes_every_intact_record_around_a_damaged_one(tmp_path):
     seqs = [r["seq"] for r in sorted(archive.contacts(conn), key=lambda r: r["seq"])]
     assert seqs == [1, 2, 3, 4, 5, 7, 8, 9, 10, 11, 12] and res["last_seq"] == 12
     assert vt.fw.log.confirmed_seq == 12 and vt.fw.log.records() == []
+
+
+def test_a_file_too_big_for_the_flash_is_refused_and_the_timer_goes_on():
+    from host.timer_client import TimerClient, DeviceRefused
+    cs = presses(2, T + 60000000)
+    vt = VirtualTimer(contacts=cs, start_us=T, storage_bytes=4000)
+    vt.advance_to(T + 10000000)
+    c = TimerClient(vt.loopback(faults=0.0))
+    with pytest.raises(DeviceRefused) as e:
+        c.push_file("almanac", bytes(range(256)) * 40)        # 10 KB into a 4 KB flash
+    assert "storage: [Errno 28]" in str(e.value)
+    assert vt.base_store.size("slot_almanac.part") < 0          # the partial file is gone
+    vt.run_contacts()
+    assert len(contacts_of(vt)) == 2 and c.status()["storage"]["error"] is None
