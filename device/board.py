@@ -5,7 +5,14 @@ Importable anywhere: without ``machine`` (CPython, the WebAssembly port) the
 module loads and ``Board`` raises ``BoardError`` when constructed.
 
 Interrupt handlers only store ``time.ticks_us()`` into preallocated ring
-buffers (no allocation in a hard IRQ); the main loop drains them.  Pin
+buffers of ``hal.RING`` edges (no allocation in a hard IRQ); the main loop drains
+them.  A full ring drops the new edge and counts it (``ring_overflows``; the
+firmware shows it).  ``ticks_ms`` is the slower counter that keeps the tick count
+through a long stall, ``rtc_us`` the RTC (``time.time``, whole seconds on most
+ports; it runs through a reset, not through a power loss without a backup
+battery), ``unique_id`` the chip's id (the device id derives from it), and a
+hardware watchdog (``machine.WDT``, ``watchdog_ms``; 0: none) is fed by
+``feed_watchdog`` after every loop pass.  Pin
 numbers, UART ids and the flash directory are arguments, so one build serves
 several boards; ``Board.from_profile`` takes them from a board profile
 (``device/boards/*.json``, ``limbclock-board/1``; ``device.main`` starts the timer
@@ -36,9 +43,8 @@ try:
 except ImportError:                      # pragma: no cover - every port we target has array
     array = None
 
-from device.hal import Hardware, FileStore, TICKS_PERIOD
+from device.hal import Hardware, FileStore, TICKS_PERIOD, RING
 
-RING = 16                                # edges buffered between two loop passes
 BEEP_MS = {".": 40, "-": 200}            # a dot and a dash of the acknowledgement patterns
 GAP_MS = 40                              # silence after each
 
@@ -48,13 +54,14 @@ class BoardError(OSError):
 
 
 class _Ring:
-    __slots__ = ("t", "v", "head", "tail")
+    __slots__ = ("t", "v", "head", "tail", "lost")
 
     def __init__(self):
         self.t = array("i", [0] * RING)
         self.v = array("b", [0] * RING)
         self.head = 0
         self.tail = 0
+        self.lost = 0                    # edges dropped because the ring was full
 
     def put(self, tick, value):          # called in the IRQ: no allocation
         nxt = (self.head + 1) % RING
@@ -62,6 +69,8 @@ class _Ring:
             self.t[self.head] = tick
             self.v[self.head] = value
             self.head = nxt
+        else:
+            self.lost += 1
 
     def drain(self):
         out = []
@@ -208,9 +217,17 @@ class Board(Hardware):
             self.wdt.feed()
 
     def unique_id(self):
-        """The microcontroller's serial number (``machine.unique_id()``) as upper-case hex."""
-        import binascii
-        return binascii.hexlify(self.machine.unique_id()).decode().upper()
+        """The microcontroller's serial number (``machine.unique_id()``), bytes."""
+        return bytes(self.machine.unique_id())
+
+    def ticks_ms(self):
+        return time.ticks_ms()
+
+    def rtc_us(self):
+        return int(time.time()) * 1000000
+
+    def ring_overflows(self):
+        return (self._button.lost, self._pps.lost)
 
     # -- feedback ----------------------------------------------------------------------------
     def buzz(self, pattern):

@@ -48,13 +48,14 @@ def load_profile(path=PROFILE_FILE):
 
 
 def device_id(store, hw):
-    """The ID kept in the store; at first boot ``LC-`` + the last 8 hex digits of the chip's
-    unique ID, written so that it never changes."""
+    """The ID kept in the store; at first boot ``device.firmware.device_id_from`` the chip's unique
+    ID (``LC-`` + its last 8 hex digits), written so that it never changes."""
+    from device.firmware import device_id_from
     raw = store.read(ID_FILE)
     if raw:
         return raw.decode().strip()
     uid = getattr(hw, "unique_id", None)
-    did = "LC-" + (uid()[-8:] if uid is not None else "0001")
+    did = device_id_from(uid() if uid is not None else b"")
     store.replace(ID_FILE, did.encode())
     return did
 

@@ -1,6 +1,6 @@
 """NMEA 0183 time sentences: RMC and ZDA from any talker (GP, GN, GL, GA, BD...).
 
-Field layouts as published in receiver manuals (see REFERENCES.md section 4):
+Field layouts as published in receiver manuals (NMEA 0183 sentences, as GPS receivers document them):
 
 * ``$--RMC,hhmmss.ss,A|V,lat,N|S,lon,E|W,sog,cog,ddmmyy,magvar,E|W[,mode[,nav]]*hh``
 * ``$--ZDA,hhmmss.ss,dd,mm,yyyy,zone_h,zone_m*hh``

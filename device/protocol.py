@@ -107,6 +107,9 @@ def held_proof(log, first, last):
     ends after the last)."""
     if first < log.base_seq or last >= log.next_seq or last < first:
         return None
+    own = getattr(log, "range_crc", None)
+    if own is not None:
+        return own(first, last)              # the log's own streaming proof (device/log.py)
     crc = 0
     s = first
     while s <= last:
@@ -200,6 +203,11 @@ class Protocol:
                 rtype, answer = ftype | RESPONSE, self.handle(ftype, body)
             except Refused as e:
                 rtype, answer = ERROR, bytes((e.code,)) + e.message.encode()[:200]
+            except OSError as e:         # the flash refused a file chunk (full): said, not fatal,
+                if self.push is not None:     # and the partial file does not keep the flash full
+                    self.fw.store.remove("slot_%s.part" % self.push[0])
+                    self.push = None
+                rtype, answer = ERROR, bytes((E_FILE,)) + ("storage: %s" % (e,)).encode()[:200]
             self.last_key = key
             self.last_type = rtype
             self.last_body = answer

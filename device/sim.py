@@ -14,8 +14,19 @@ for ``host.timer_client.TimerClient`` that runs the simulation as it is read.
 
 Faults: ``link_faults`` drops or corrupts that fraction of the bytes in both
 directions; ``power_cut_at_us`` (a true UTC instant) or
-``power_cut_after_bytes`` (bytes written to storage) cut the power; the timer
+``power_cut_after_bytes`` (bytes written to storage, or only to the files whose
+names start with ``power_cut_prefix``) cut the power; the timer
 comes back ``restart_after_us`` later, recovers its log and carries on.
+``storage_bytes`` makes the flash that small (writes beyond it fail with ENOSPC,
+as a full flash does) and ``fail_writes`` fails that many writes with EIO: the
+firmware holds the presses and says so, exactly as on a board.  ``stalls`` are
+intervals in which the firmware's loop does not run; ``cpu_us`` is the simulated
+time each tick read costs the firmware (a slow board: a reduction takes time and
+the world moves on during it).
+
+Identity: the board's unique id is made once and kept in ``state_dir/board-id``
+(without a state directory it derives from ``seed``); the device id derives from
+it (``LC-`` + hex) unless ``device_id`` is given.
 """
 import json
 import os
@@ -28,7 +39,7 @@ import time
 from device import clock as clk
 from device.firmware import Firmware, MODES
 from device.hal import FileStore, TICKS_PERIOD
-from device.simhw import SimWorld, SimHardware, Oscillator, MemStore, CuttingStore, PowerCut
+from device.simhw import SimWorld, SimHardware, Oscillator, MemStore, CuttingStore, FaultyStore, PowerCut
 from engine.timescale import parse_utc
 
 LEAD_US = 90 * 1000000          # the simulation starts this long before the first contact
@@ -47,8 +58,13 @@ def read_session(session):
     else:
         text = session
         if not session.lstrip().startswith("{"):
-            with open(session) as f:
-                text = f.read()
+            try:
+                with open(session) as f:
+                    text = f.read()
+            except FileNotFoundError:
+                raise SimError("session file %s not found" % session)
+            except OSError as e:
+                raise SimError("session file %s: %s" % (session, e.strerror or e))
         try:
             doc = json.loads(text)
         except ValueError as e:
@@ -98,6 +114,8 @@ def _read_progress(path):
         return None
     except ValueError:
         raise SimError("%s is damaged: remove it to press the whole session again" % path)
+    except OSError as e:
+        raise SimError("%s: %s" % (path, e.strerror or e))
     if not isinstance(doc, dict) or doc.get("format") != "limbclock-sim-progress/1" or \
             not isinstance(doc.get("last_pressed_utc_us"), int):
         raise SimError("%s: not a limbclock-sim-progress/1 file" % path)
@@ -129,19 +147,56 @@ class Faults:
         return bytes(out)
 
 
+def _state_dir(path):
+    """Create (if needed) and check the state directory: a problem names the directory and why."""
+    try:
+        os.makedirs(os.path.join(path, "flash"), exist_ok=True)
+        probe = os.path.join(path, ".probe")
+        with open(probe, "w") as f:
+            f.write("ok")
+        os.remove(probe)
+    except OSError as e:
+        raise SimError("state directory %s: %s" % (path, e.strerror or e))
+
+
+def _board_id(state_dir, seed):
+    """The board's unique id bytes: kept in ``state_dir/board-id`` (made once), else from ``seed``."""
+    if state_dir is None:
+        return b"SIM" + bytes(((seed >> 24) & 255, (seed >> 16) & 255, (seed >> 8) & 255, seed & 255))
+    path = os.path.join(state_dir, "board-id")
+    try:
+        with open(path) as f:
+            uid = bytes.fromhex(f.read().strip())
+        if uid:
+            return uid
+    except (OSError, ValueError):
+        pass
+    uid = os.urandom(8)
+    try:
+        with open(path, "w") as f:
+            f.write(uid.hex() + "\n")
+    except OSError as e:
+        raise SimError("state directory %s: %s" % (state_dir, e.strerror or e))
+    return uid
+
+
 class VirtualTimer:
     def __init__(self, session=None, contacts=None, state_dir=None, link_faults=0.0, speed=0.0, seed=1,
-                 drift_ppm=1.3, wander_ppm=0.0, aging_ppm_per_day=0.0, profile=clk.TCXO, outages=(),
+                 drift_ppm=1.3, wander_ppm=0.0, aging_ppm_per_day=0.0, profile=clk.DEFAULT_PROFILE, outages=(),
                  power_cut_at_us=None, power_cut_after_bytes=None, restart_after_us=3000000,
                  display_file=None, display_stderr=False, capacity=65536, ticks_period=TICKS_PERIOD,
-                 start_us=None, device_id="LC-SIM1", press_us=120000, conditions=False, fix_at_us=None):
+                 start_us=None, device_id=None, press_us=120000, conditions=False, fix_at_us=None,
+                 receiver=clk.PRECEDING, names_next=False, label_delays_us=(120000, 180000), label_jitter_us=0,
+                 storage_bytes=None, fail_writes=0, stalls=(), cpu_us=0, ms_counter=True, first_fix_us=None,
+                 power_cut_prefix=""):
         self.contacts = list(contacts or []) if session is None else read_contacts(session)
         files = conditions_files(read_session(session)) if conditions and session is not None else {}
         self.state_dir = state_dir
         self.progress_path = None
+        self.progress_error = None
         self.already_pressed = 0
         if state_dir:
-            os.makedirs(state_dir, exist_ok=True)
+            _state_dir(state_dir)
             # a restarted virtual timer does not press again what it pressed in an earlier run
             self.progress_path = os.path.join(state_dir, "sim-progress.json")
             done = _read_progress(self.progress_path)
@@ -151,23 +206,31 @@ class VirtualTimer:
                 self.contacts = left
                 if start_us is None and not left:
                     start_us = done + 10000000
+        self.uid = _board_id(state_dir, seed)
         self._saved = None
         if start_us is None:
             start_us = (self.contacts[0][0] if self.contacts else int(time.time()) * 1000000) - LEAD_US
         self.start_us = start_us
         self.base_store = FileStore(os.path.join(state_dir, "flash")) if state_dir else MemStore()
-        for slot in files:                   # as if pushed by the host before the session
-            self.base_store.replace("slot_" + slot, files[slot])
+        try:
+            for slot in files:                   # as if pushed by the host before the session
+                self.base_store.replace("slot_" + slot, files[slot])
+        except OSError as e:
+            raise SimError("state directory %s: %s" % (state_dir, e.strerror or e))
+        self.flash = FaultyStore(self.base_store, storage_bytes, fail_writes)
         self.faults_in = Faults(link_faults, seed)
         self.faults_out = Faults(link_faults, seed + 1)
         self.speed = speed
         self.profile = profile
+        self.receiver = receiver
         self.capacity = capacity
         self.device_id = device_id
+        self.ms_counter = ms_counter
         self.display_file = display_file
         self.display_stderr = display_stderr
         self.power_cut_at_us = power_cut_at_us
         self.power_cut_after_bytes = power_cut_after_bytes
+        self.power_cut_prefix = power_cut_prefix
         self.restart_after_us = restart_after_us
         self.ticks_period = ticks_period
         self.press_us = press_us
@@ -176,9 +239,13 @@ class VirtualTimer:
         self.off_until = None
         osc = Oscillator(start_us, drift_ppm, wander_ppm, aging_ppm_per_day=aging_ppm_per_day,
                          start_tick=random.Random(seed).randrange(ticks_period), period=ticks_period)
-        self.world = SimWorld(start_us, osc, outages=outages, period=ticks_period)
+        self.world = SimWorld(start_us, osc, outages=outages, period=ticks_period, names_next=names_next,
+                              label_delays_us=label_delays_us, label_jitter_us=label_jitter_us, stalls=stalls,
+                              cpu_us=cpu_us, seed=seed, first_fix_us=first_fix_us)
         self.world.on_display = self._on_display
         self._boot(self.power_cut_after_bytes)
+        from device.firmware import device_id_from
+        self.device_id = device_id or device_id_from(self.uid)
         self._plan_presses()
         self.end_contacts_us = max([c[0] for c in self.contacts] + [start_us]) + 5000000
         self.fix_at_us = fix_at_us
@@ -194,17 +261,27 @@ class VirtualTimer:
 
     # -- power ----------------------------------------------------------------
     def _boot(self, budget=None):
-        store = CuttingStore(self.base_store, budget)
+        store = CuttingStore(self.flash, budget, self.power_cut_prefix)
         self.store = store
-        self.hw = SimHardware(self.world, store, self.ticks_period)
-        self.fw = Firmware(self.hw, device_id=self.device_id, capacity=self.capacity, profile=self.profile)
+        self.hw = SimHardware(self.world, store, self.ticks_period, self.uid, self.ms_counter)
+        self.world.attach(self.hw, None)
+        self.world.in_poll = True          # booting takes simulated time too
+        try:
+            self.fw = Firmware(self.hw, device_id=self.device_id, capacity=self.capacity, profile=self.profile,
+                               receiver=self.receiver)
+        except PowerCut:
+            self.fw = None
+            self._power_off()
+            return
+        finally:
+            self.world.in_poll = False
         self.world.attach(self.hw, self.fw)
 
     def _power_off(self):
         self.power_cuts += 1
         self.store.dead = True
         self.off_until = self.world.t_us + self.restart_after_us
-        self.world.attach(SimHardware(self.world, MemStore(), self.ticks_period), None)
+        self.world.attach(SimHardware(self.world, MemStore(), self.ticks_period, self.uid), None)
         self.fw = None
 
     def _plan_presses(self):
@@ -261,9 +338,12 @@ class VirtualTimer:
         if done is not None and done != self._saved:
             self._saved = done
             tmp = self.progress_path + ".tmp"
-            with open(tmp, "w") as f:
-                json.dump({"format": "limbclock-sim-progress/1", "last_pressed_utc_us": done}, f)
-            os.replace(tmp, self.progress_path)
+            try:
+                with open(tmp, "w") as f:
+                    json.dump({"format": "limbclock-sim-progress/1", "last_pressed_utc_us": done}, f)
+                os.replace(tmp, self.progress_path)
+            except OSError as e:            # the disk of the state directory is full or gone
+                self.progress_error = "progress not saved in %s: %s" % (self.state_dir, e.strerror or e)
 
     def run_contacts(self):
         """Run through every scheduled contact (as fast as possible) and until their records are written."""

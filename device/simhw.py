@@ -6,25 +6,30 @@
 * the oscillator turns true time into raw ticks: a constant drift (ppm), an
   optional sinusoidal wander (temperature) and aging, wrapping at ``ticks_period``;
 * the GPS receiver emits a PPS edge at every true whole second and, 120 ms and
-  180 ms later, an RMC and a ZDA sentence naming it; during an outage there is
-  no PPS and RMC says ``V``; before the first fix ZDA fields are blank;
+  180 ms later (settable, with jitter), an RMC and a ZDA sentence naming it (or the
+  next second: ``names_next``); during an outage there is no PPS and RMC says ``V``;
+  before the first fix ZDA fields are blank;
 * the button closes at each scheduled press with contact bounce, and opens after
   the press duration (bouncing again).
 
 Events are processed in time order; the firmware is polled at each event and
-at least every ``poll_us``.
+at least every ``poll_us`` (except in a simulated stall).  Storage: ``MemStore``
+(memory), ``CuttingStore`` (a power cut after N bytes), ``FaultyStore`` (a full or
+failing flash: ENOSPC beyond a quota, EIO on the next N writes; it counts bytes
+and operations written, for the wear figures).
 """
 import heapq
 import math
 
-from device.hal import Hardware, TICKS_PERIOD
+from device.hal import Hardware, TICKS_PERIOD, RING
 from device.nmea import checksum
 from engine.timescale import civil_from_days
 from engine.constants import US_PER_DAY
 
 
-class PowerCut(Exception):
-    """Raised by a ``CuttingStore`` when its byte budget runs out: the power is gone."""
+class PowerCut(BaseException):
+    """Raised by a ``CuttingStore`` when its byte budget runs out: the power is gone.  Not an
+    ``Exception``: no code survives a power cut, so the firmware's guards do not catch it."""
 
 
 class MemStore:
@@ -63,6 +68,9 @@ class MemStore:
     def remove(self, name):
         self.files.pop(name, None)
 
+    def names(self, prefix):
+        return [n for n in sorted(self.files) if n.startswith(prefix)]
+
     def recover(self, name):
         if name + ".tmp" not in self.files:
             return
@@ -76,17 +84,19 @@ class CuttingStore:
     """Wraps a store; after ``budget`` more bytes written the power is cut mid-write.
 
     The bytes before the cut reach the store, the rest never do; every later
-    write raises ``PowerCut`` too.  ``budget=None`` never cuts."""
+    write raises ``PowerCut`` too.  ``budget=None`` never cuts.  ``prefix``: only
+    writes to files whose names start with it count (e.g. the log's segments)."""
 
-    def __init__(self, inner, budget=None):
+    def __init__(self, inner, budget=None, prefix=""):
         self.inner = inner
         self.budget = budget
+        self.prefix = prefix
         self.dead = False
 
-    def _take(self, n):
+    def _take(self, n, name=""):
         if self.dead:
             raise PowerCut("power is off")
-        if self.budget is None:
+        if self.budget is None or not name.startswith(self.prefix):
             return n
         k = min(n, self.budget)
         self.budget -= k
@@ -99,7 +109,7 @@ class CuttingStore:
         return self.inner.read(name, offset, n)
 
     def append(self, name, data):
-        k = self._take(len(data))
+        k = self._take(len(data), name)
         if k:
             self.inner.append(name, bytes(data[:k]))
         if k < len(data):
@@ -130,6 +140,88 @@ class CuttingStore:
 
     def recover(self, name):
         self.inner.recover(name)
+
+    def names(self, prefix):
+        return self.inner.names(prefix)
+
+
+class FaultyStore:
+    """Wraps a store; writes fail with ``OSError`` like a full or failing flash.
+
+    ``quota``: bytes the store may hold in all (counted from the files' sizes; an append or a
+    replace that would exceed it writes what fits and raises ENOSPC, as a full flash does);
+    ``fail_writes``: the next that many writes raise EIO without writing anything.
+    ``written`` counts the bytes written and ``ops`` the write operations (wear figures)."""
+
+    def __init__(self, inner, quota=None, fail_writes=0):
+        self.inner = inner
+        self.quota = quota
+        self.fail_writes = fail_writes
+        self.written = 0
+        self.ops = 0
+
+    def used(self):
+        n = 0
+        for name in self.inner.names(""):
+            n += max(0, self.inner.size(name))
+        return n
+
+    def _check(self, n):
+        import errno
+        if self.fail_writes > 0:
+            self.fail_writes -= 1
+            raise OSError(errno.EIO, "I/O error (injected)")
+        if self.quota is not None:
+            room = self.quota - self.used()
+            if n > room:
+                return max(0, room), OSError(errno.ENOSPC, "no space left on device")
+        return n, None
+
+    def size(self, name):
+        return self.inner.size(name)
+
+    def read(self, name, offset=0, n=-1):
+        return self.inner.read(name, offset, n)
+
+    def append(self, name, data):
+        k, err = self._check(len(data))
+        if err is None or k or self.inner.size(name) < 0:
+            self.inner.append(name, bytes(data[:k]))     # a full flash still creates the file
+        self.written += k
+        self.ops += 1
+        if err is not None:
+            raise err
+
+    def replace(self, name, chunks):
+        if isinstance(chunks, (bytes, bytearray)):
+            chunks = (chunks,)
+        self.inner.remove(name + ".tmp")
+        try:
+            for c in chunks:
+                self.append(name + ".tmp", c)
+            if self.inner.size(name + ".tmp") < 0:
+                self.append(name + ".tmp", b"")
+        except OSError:
+            self.inner.remove(name + ".tmp")
+            raise
+        self.rename(name + ".tmp", name)
+
+    def rename(self, src, dst):
+        self.ops += 1
+        self.inner.rename(src, dst)
+
+    def truncate(self, name, n):
+        self.replace(name, self.read(name, 0, n))
+
+    def remove(self, name):
+        self.ops += 1
+        self.inner.remove(name)
+
+    def recover(self, name):
+        self.inner.recover(name)
+
+    def names(self, prefix):
+        return self.inner.names(prefix)
 
 
 class Oscillator:
@@ -183,22 +275,78 @@ def gps_sentences(second_us, talker="GN", fix=True, have_time=True):
 
 
 class SimHardware(Hardware):
-    """The ``hal.Hardware`` interface over a simulated world (queues filled by ``SimWorld``)."""
+    """The ``hal.Hardware`` interface over a simulated world (rings and buffers filled by ``SimWorld``).
 
-    def __init__(self, world, store, period=TICKS_PERIOD):
+    Like a board: the button and PPS edges go to rings of ``hal.RING`` edges that drop (and count)
+    edges when full; the GPS UART buffers ``uart_bytes`` bytes and drops the rest; ``ticks_ms``
+    counts the same oscillator (``ms=False``: a port without it); ``rtc_us`` is the world's
+    battery-backed RTC (it runs through power cuts); ``unique_id`` the board's id bytes;
+    ``feeds`` counts watchdog feeds."""
+    rtc_tolerance_ppm = 50.0
+    rtc_resolution_us = 1000
+
+    def __init__(self, world, store, period=TICKS_PERIOD, uid=b"\x00\x01\x02\x03\x04\x05\x06\x07", ms=True,
+                 uart_bytes=1024):
         self.world = world
         self.store = store
         self.ticks_period = period
+        self.ms_period = TICKS_PERIOD
+        self.uid = uid
+        self.has_ms = ms
+        self.uart_bytes = uart_bytes
         self.q_button = []
         self.q_pps = []
+        self.lost_button = 0
+        self.lost_pps = 0
+        self.lost_uart = 0
         self.gps_buf = bytearray()
         self.host_in = bytearray()
         self.host_out = bytearray()
         self.display = []
         self.buzzes = []
+        self.feeds = 0
 
     def ticks_us(self):
-        return self.world.osc.raw(self.world.t_us)
+        w = self.world
+        if w.cpu_us and w.in_poll:
+            w.spend(w.cpu_us)           # the firmware's own work takes simulated time
+        return w.osc.raw(w.t_us)
+
+    def ticks_ms(self):
+        if not self.has_ms:
+            return None
+        return (self.world.osc.elapsed_ticks(self.world.t_us) // 1000) % self.ms_period
+
+    def rtc_us(self):
+        return self.world.rtc_us()
+
+    def unique_id(self):
+        return self.uid
+
+    def feed_watchdog(self):
+        self.feeds += 1
+
+    def put_button(self, raw, pressed):
+        if len(self.q_button) >= RING:
+            self.lost_button += 1
+        else:
+            self.q_button.append((raw, pressed))
+
+    def put_pps(self, raw):
+        if len(self.q_pps) >= RING:
+            self.lost_pps += 1
+        else:
+            self.q_pps.append(raw)
+
+    def put_gps(self, data):
+        room = self.uart_bytes - len(self.gps_buf)
+        if room < len(data):
+            self.lost_uart += len(data) - max(0, room)
+            data = data[:max(0, room)]
+        self.gps_buf.extend(data)
+
+    def ring_overflows(self):
+        return (self.lost_button, self.lost_pps)
 
     def button_events(self):
         q, self.q_button = self.q_button, []
@@ -235,17 +383,33 @@ class SimWorld:
 
     ``outages``: list of (start_us, end_us) without PPS (RMC void).  ``first_fix_us``:
     before it the receiver has no time (blank ZDA, void RMC).  ``poll_us``: the
-    longest gap between firmware polls."""
+    longest gap between firmware polls.  The receiver: ``label_delays_us`` (RMC, ZDA) after
+    the edge they follow, ``label_jitter_us`` added at random to each second's delays,
+    ``names_next``: the sentences after edge S name second S + 1 (as some receivers do).
+    ``stalls``: (from_us, to_us) intervals in which the firmware is not polled (a loop stall:
+    the interrupts still fill the rings).  ``cpu_us``: simulated time each ``ticks_us`` call
+    costs while the firmware runs (0: infinitely fast), so that a long computation takes
+    simulated time and the world moves on meanwhile.  ``rtc_drift_ppm``: the RTC's rate error."""
 
     def __init__(self, start_us, osc=None, outages=(), first_fix_us=None, poll_us=100000,
-                 label_delays_us=(120000, 180000), talker="GN", period=TICKS_PERIOD):
+                 label_delays_us=(120000, 180000), talker="GN", period=TICKS_PERIOD, names_next=False,
+                 label_jitter_us=0, stalls=(), cpu_us=0, rtc_drift_ppm=20.0, seed=0):
+        import random
         self.t_us = start_us
         self.osc = osc or Oscillator(start_us, period=period)
         self.outages = list(outages)
         self.first_fix_us = start_us if first_fix_us is None else first_fix_us
         self.poll_us = poll_us
         self.label_delays_us = label_delays_us
+        self.label_jitter_us = label_jitter_us
+        self.names_next = names_next
         self.talker = talker
+        self.stalls = list(stalls)
+        self.cpu_us = cpu_us
+        self.in_poll = False
+        self.rtc_t0 = start_us
+        self.rtc_drift_ppm = rtc_drift_ppm
+        self.rng = random.Random(seed)
         self.events = []
         self.n = 0
         self.hw = None
@@ -260,12 +424,23 @@ class SimWorld:
         self.hw = hw
         self.fw = fw
 
+    def rtc_us(self):
+        """The battery-backed RTC: true time since the start at its own rate, to 1 ms."""
+        dt = self.t_us - self.rtc_t0
+        return (self.rtc_t0 + dt + int(dt * self.rtc_drift_ppm / 1e6)) // 1000 * 1000
+
     def _push(self, t, kind, arg=None):
         self.n += 1
         heapq.heappush(self.events, (t, self.n, kind, arg))
 
     def in_outage(self, t):
         for a, b in self.outages:
+            if a <= t < b:
+                return True
+        return False
+
+    def stalled(self, t):
+        for a, b in self.stalls:
             if a <= t < b:
                 return True
         return False
@@ -293,17 +468,26 @@ class SimWorld:
             have_time = arg >= self.first_fix_us
             fix = have_time and not self.in_outage(arg)
             if fix:
-                hw.q_pps.append(self.osc.raw(t))
-            rmc, zda = gps_sentences(arg, self.talker, fix, have_time)
-            self._push(arg + self.label_delays_us[0], "gps", rmc)
-            self._push(arg + self.label_delays_us[1], "gps", zda)
+                hw.put_pps(self.osc.raw(t))
+            named = arg + 1000000 if self.names_next else arg
+            rmc, zda = gps_sentences(named, self.talker, fix, have_time)
+            jit = self.rng.randrange(-self.label_jitter_us, self.label_jitter_us + 1) if self.label_jitter_us else 0
+            self._push(arg + self.label_delays_us[0] + jit, "gps", rmc)
+            self._push(arg + self.label_delays_us[1] + jit, "gps", zda)
         elif kind == "gps":
-            hw.gps_buf.extend(arg)
+            hw.put_gps(arg)
         elif kind == "button":
             raw = self.osc.raw(t)
             if arg:
                 self.truth.setdefault(raw, t)
-            hw.q_button.append((raw, arg))
+            hw.put_button(raw, arg)
+
+    def spend(self, us):
+        """Simulated time passes while the firmware works: events fire (into the rings), no poll."""
+        self.t_us += us
+        while self.events and self.events[0][0] <= self.t_us:
+            t, _, kind, arg = heapq.heappop(self.events)
+            self._fire(t, kind, arg)
 
     def advance_to(self, t_target):
         """Run the world and the firmware up to true time ``t_target`` (inclusive)."""
@@ -315,7 +499,11 @@ class SimWorld:
             while self.events and self.events[0][0] <= self.t_us:
                 t, _, kind, arg = heapq.heappop(self.events)
                 self._fire(t, kind, arg)
-            if self.fw is not None:
-                self.fw.poll()
+            if self.fw is not None and not self.stalled(self.t_us):
+                self.in_poll = True
+                try:
+                    self.fw.poll()
+                finally:
+                    self.in_poll = False
             if self.t_us >= t_target:
                 return

@@ -748,10 +748,11 @@ def store_records(conn, device_id, records, log_id=LEGACY_LOG):
                 conn.execute("UPDATE contacts SET log_id=? WHERE device_id=? AND log_id=? AND seq=?",
                              (log_id, device_id, LEGACY_LOG, r["seq"]))
                 old_table, old_row = table, row
-        if r["raw"] is not None:
-            _store_raw(conn, device_id, log_id, r["seq"], bytes(r["raw"]))
+        same_raw = r["raw"] is not None and _store_raw(conn, device_id, log_id, r["seq"], bytes(r["raw"]))
         if old_table is not None:
-            if (old_table, old_row) != (table, row):
+            # the stored bytes are the record: a contact given its UTC since by a late stamp
+            # (apply_stamps) is still the same record when it is read again
+            if not same_raw and (old_table, old_row) != (table, row):
                 raise ArchiveError("device %s log %s seq %d: the archive holds a different record "
                                    "(do two timers share a device id and a log identity?)"
                                    % (device_id, log_label(log_id), r["seq"]))
@@ -780,9 +781,11 @@ def _store_raw(conn, device_id, log_id, seq, raw):
     if row is None:
         conn.execute("INSERT INTO log_records (device_id, log_id, seq, raw) VALUES (?,?,?,?)",
                      (device_id, log_id, seq, raw))
-    elif bytes(row[0]) != raw:
+        return False
+    if bytes(row[0]) != raw:
         raise ArchiveError("device %s log %s seq %d: the archive holds other bytes for this record"
                            % (device_id, log_label(log_id), seq))
+    return True
 
 
 def note_gaps(conn, device_id, log_id, seqs):
@@ -793,6 +796,29 @@ def note_gaps(conn, device_id, log_id, seqs):
     for s in seqs:
         cur = conn.execute("INSERT OR IGNORE INTO log_gaps (device_id, log_id, seq, noted_us) VALUES (?,?,?,?)",
                            (device_id, log_id, s, t))
+        n += cur.rowcount
+    return n
+
+
+# -- late stamps (the timer's STAMP records; owned with device/log.py) ------------------------------
+
+def apply_stamps(conn, device_id, log_id=LEGACY_LOG):
+    """Give the timer's untimed contacts of the log ``log_id`` (quality ``none``: logged before it had
+    any time, their ``utc_us`` the oscillator's tick) the UTC of the later ``stamp`` record that names
+    them (``stamps_seq``), with its quality and uncertainty.  Call inside a transaction, after
+    ``store_records``; idempotent (a contact already stamped is left alone).  Returns how many
+    contacts got their time."""
+    n = 0
+    rows = conn.execute("SELECT utc_us, payload FROM events WHERE device_id=? AND log_id=? AND kind='stamp' "
+                        "ORDER BY seq", (device_id, log_id)).fetchall()
+    for utc_us, payload in rows:
+        p = json.loads(payload)
+        target, quality, unc = p.get("stamps_seq"), p.get("quality"), p.get("uncertainty_us")
+        if not isinstance(target, int) or not isinstance(quality, str) or quality == "none" or \
+                not isinstance(unc, int) or not isinstance(utc_us, int):
+            continue
+        cur = conn.execute("UPDATE contacts SET utc_us=?, quality=?, uncertainty_us=? WHERE device_id=? AND log_id=? "
+                           "AND seq=? AND quality='none'", (utc_us, quality, unc, device_id, log_id, target))
         n += cur.rowcount
     return n
 

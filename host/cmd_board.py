@@ -16,6 +16,7 @@ with a MicroPython for the profile's platform, and writes the device ID made fro
 ``machine.unique_id()``.  ``check --port PORT`` runs the installed firmware for a few seconds
 and reports versions, free heap, the almanac's span and the clock's state.
 """
+import binascii
 import json
 import os
 import shlex
@@ -24,6 +25,7 @@ import subprocess
 import sys
 import tempfile
 
+from device.firmware import device_id_from
 from host.cautions import CAUTION_LINES
 from host.errors import UserError
 
@@ -341,7 +343,7 @@ def run_install(args):
     if prof.get("hardware") == "sim":
         raise UserError("the sim profile is not installed on a board: run limbclock sim --micropython")
     board = probe(args, prof)
-    did = args.device_id or ("LC-" + board["unique_id"].upper()[-8:] if board["unique_id"] else None)
+    did = args.device_id or (device_id_from(binascii.unhexlify(board["unique_id"])) if board["unique_id"] else None)
     if did is None:
         raise UserError("%s has no machine.unique_id(): give --device-id" % args.port)
     tmp = tempfile.mkdtemp(prefix="limbclock-board-")

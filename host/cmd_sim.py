@@ -22,7 +22,10 @@ def register(sub):
     p.add_argument("--gps-outage", action="append", default=[], metavar="FROM,TO",
                    help="no PPS / void fixes between two UTC instants (repeatable)")
     p.add_argument("--drift-ppm", type=float, default=1.3, help="oscillator drift in ppm (default 1.3)")
-    p.add_argument("--oscillator", choices=("tcxo", "xo"), default="tcxo", help="holdover error model")
+    p.add_argument("--oscillator", choices=("tcxo", "xo"), default="xo",
+                   help="holdover error model (default xo: a board's plain crystal)")
+    p.add_argument("--flash-bytes", type=int, metavar="N",
+                   help="make the timer's flash N bytes small (writes beyond fail as on a full flash)")
     p.add_argument("--display-file", metavar="FILE", help="write the timer's display lines to FILE")
     p.add_argument("--conditions", action="store_true",
                    help="put the session's instrument, track and observer on the timer (as `limbclock push` "
@@ -56,6 +59,8 @@ def _build(args):
         if b <= a:
             raise UserError("--gps-outage %r ends before it starts" % text)
         outages.append((a, b))
+    if args.flash_bytes is not None and args.flash_bytes < 0:
+        raise UserError("--flash-bytes must be 0 or more, got %d" % args.flash_bytes)
     fix_at = None
     if args.fix_after is not None:
         if not args.conditions:
@@ -82,7 +87,7 @@ def _build(args):
                             power_cut_at_us=parse_utc(args.power_cut_at) if args.power_cut_at else None,
                             power_cut_after_bytes=args.power_cut_after_bytes,
                             display_file=args.display_file, display_stderr=not args.display_file,
-                            conditions=args.conditions, fix_at_us=fix_at, **kw)
+                            conditions=args.conditions, fix_at_us=fix_at, storage_bytes=args.flash_bytes, **kw)
     except FileNotFoundError:
         raise UserError("session file %s not found" % args.session)
 
@@ -106,7 +111,8 @@ def _summary(vt):
         return getattr(vt, "final", None) or {}
     fw = vt.fw
     return {"last_seq": fw.log.last_seq if fw else None, "confirmed_seq": fw.log.confirmed_seq if fw else None,
-            "onboard_fix": fw.onboard.fix if fw else None, "next_contact": fw.onboard.next if fw else None}
+            "onboard_fix": fw.onboard.fix if fw else None, "next_contact": fw.onboard.next if fw else None,
+            "storage": fw.status()["storage"] if fw else None, "fault": fw.fault if fw else None}
 
 
 def run(args):
@@ -141,6 +147,7 @@ def run(args):
                "power_cuts": vt.power_cuts, "link_bytes_dropped": vt.faults_in.dropped + vt.faults_out.dropped,
                "link_bytes_corrupted": vt.faults_in.corrupted + vt.faults_out.corrupted,
                "onboard_fix": fw.get("onboard_fix"), "next_contact": fw.get("next_contact"),
+               "storage": fw.get("storage"), "fault": fw.get("fault"),
                "firmware_in": "micropython" if args.micropython is not None else "cpython"}
     if args.json:
         print(json.dumps(summary))
@@ -149,4 +156,10 @@ def run(args):
             return "none" if v is None else "#%s" % v
         print("virtual timer stopped: last record %s, confirmed %s, %d power cut(s)"
               % (seq(summary["last_seq"]), seq(summary["confirmed_seq"]), vt.power_cuts))
+        st = summary["storage"]
+        if st and st["error"]:
+            print("the timer's storage refused writes (%s): %d press(es) held in its memory, %d lost"
+                  % (st["error"], st["held"], st["held_overflow"]))
+        if vt.progress_error:
+            print(vt.progress_error)
     return 0

@@ -56,6 +56,13 @@ def record_dict(r):
     d = {"seq": r.seq, "kind": kind, "utc_us": r.utc_us, "session": r.session,
          "quality": _name(dlog.TIME_STATE_NAMES, r.time_state, "state"), "uncertainty_us": r.uncertainty_us,
          "raw": r.pack()}
+    # -- record kinds and untimed records (device/log.py; owned with the timer's firmware) --
+    untimed = r.time_state == 0 and kind != "void"
+    if untimed:
+        # logged before the timer had any time: utc_us holds the oscillator's tick (us since that
+        # boot) and ref_seq the boot count; a later "stamp" record gives the UTC (apply_stamps)
+        d["tick_us"] = r.utc_us
+        d["boot"] = r.ref_seq
     if kind == "contact":
         d["body"] = _name(dlog.BODY_NAMES, r.body, "body")
         d["limb"] = _name(dlog.LIMB_NAMES, r.limb, "limb")
@@ -63,10 +70,17 @@ def record_dict(r):
             d["image_index"] = r.image
     elif kind == "void":
         d["voided_seq"] = r.ref_seq
+    elif kind == "stamp":
+        d["stamps_seq"] = r.ref_seq
+        d["body"] = _name(dlog.BODY_NAMES, r.body, "body")
+        d["limb"] = _name(dlog.LIMB_NAMES, r.limb, "limb")
+    elif kind == "fault":
+        d["fault_kind"] = r.image
+        d["fault_count"] = r.ref_seq
     else:
         d["body"] = _name(dlog.BODY_NAMES, r.body, "body")
         d["limb"] = _name(dlog.LIMB_NAMES, r.limb, "limb")
-        if r.ref_seq:
+        if r.ref_seq and not untimed:
             d["ref_seq"] = r.ref_seq
     return d
 
@@ -164,6 +178,7 @@ def sync(client, conn, progress=None, batch=None, stream=None, ack_every=ACK_EVE
                 n, d = archive.store_records(conn, device_id, [record_dict(r) for r in recs], log_id)
                 if gap:
                     archive.note_gaps(conn, device_id, log_id, gap)
+                archive.apply_stamps(conn, device_id, log_id)  # late stamps of untimed contacts
             new += n
             dup += d
             missing += gap

@@ -26,7 +26,8 @@ from engine import almanac, session, fix, identify, model, plan, instrument, cor
 st = hal.FileStore(%(root)r)
 st.replace("slot_instrument", %(inst)r)
 st.replace("slot_track", %(track)r)
-st.remove("log.bin")
+for _n in list(st.names("log.bin")):      # the log's heads and segments from an earlier run
+    st.remove(_n)
 lg = L.Log(st, capacity=65536)
 for t_us, body, limb in %(contacts)r:
     lg.append(L.CONTACT, t_us, 1, 30, body, limb, 1)

@@ -163,7 +163,7 @@ def test_ack_without_matching_identity_or_proof_keeps_the_records():
 
 def test_proof_over_a_range_with_records_the_timer_no_longer_holds():
     """A log that skips damaged records: READ_LOG returns the others (a gap in seq) and the
-    proof is over the records actually held (device/log.py ``range_crc``'s definition)."""
+    proof is over the records actually held (device/log.py ``range_crc``, each record without its own CRC)."""
     vt = make_timer(8)
     log = vt.fw.log
     packed = dict((r.seq, r.pack()) for r in log.records())
@@ -400,7 +400,7 @@ def test_real_pty_with_pyserial_and_link_faults(tmp_path):
     try:
         assert port.startswith("/dev/")
         with TimerClient(port, timeout=0.25, retries=15) as c:
-            assert c.handshake()["device_id"] == "LC-SIM1"
+            assert c.handshake()["device_id"] == vt.device_id and vt.device_id.startswith("LC-")
             deadline = time.time() + 60
             while c.status()["log"]["last_seq"] != 40:
                 assert time.time() < deadline, "the virtual timer did not press its 40 contacts"

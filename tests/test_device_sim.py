@@ -99,3 +99,35 @@ def test_sim_command_bad_options(tmp_path):
     p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(tmp_path / "none.json")],
                        cwd=ROOT, capture_output=True, text=True, timeout=30)
     assert p.returncode == 2 and "none.json" in p.stderr
+
+
+def test_sim_command_names_a_bad_state_directory(tmp_path):
+    sess = tmp_path / "s.json"
+    sess.write_text(json.dumps(session(1)))
+    blocker = tmp_path / "state"
+    blocker.write_text("a file where the state directory should be")
+    p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(sess), "--state", str(blocker)],
+                       cwd=ROOT, capture_output=True, text=True, timeout=30)
+    assert p.returncode == 2 and len(p.stderr.strip().splitlines()) == 1
+    assert "state directory" in p.stderr and str(blocker) in p.stderr and "session file" not in p.stderr
+
+
+def test_sim_command_with_a_full_flash_holds_the_presses_and_says_so(tmp_path):
+    sess = tmp_path / "s.json"
+    sess.write_text(json.dumps(session(3)))
+    proc = subprocess.Popen([sys.executable, "-m", "host", "sim", "--session", str(sess), "--flash-bytes", "160",
+                             "--state", str(tmp_path / "st")],
+                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        port = proc.stdout.readline().strip()
+        with TimerClient(port, timeout=0.5, retries=10) as c:
+            deadline = time.time() + 60
+            while c.status()["storage"]["held"] == 0:
+                assert time.time() < deadline, "the virtual timer did not fill its flash"
+            st = c.status()
+        assert st["storage"]["error"] == "flash full" and st["display"][3].startswith("FLASH FULL: SYNC!")
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        out, err = proc.communicate(timeout=10)
+    assert proc.returncode == 0 and "Traceback" not in err, err
+    assert "press(es) held in its memory" in out

@@ -444,3 +444,35 @@ def test_relabelling_not_kept_gives_back_the_first_fix():
     assert s.contacts[3].image == right
     assert got == first and got["contacts_used"] == len(doc["contacts"])
     assert distance_nm(got["lat_deg"], got["lon_deg"], doc["truth"]["lat_deg"], doc["truth"]["lon_deg"]) < 0.3
+
+
+def test_a_press_during_the_onboard_fix_is_stamped_and_logged_exactly():
+    # a slow board: every read of the tick counter (once per model evaluation through the coop hook)
+    # costs 4 ms of simulated time, so the reduction takes tens of seconds while the world goes on
+    from device import log as L
+    doc = load("morning_run")
+    doc["contacts"] = doc["contacts"][:10]
+    last = last_utc(doc)
+    vt = VirtualTimer(session=doc, conditions=True)
+    t_fix = last + 20000000
+    vt.advance_to(t_fix)
+    vt.world.cpu_us = 4000
+    vt.press_fix(t_fix)                                   # held 9.5 s: the reduction starts at the release
+    start = t_fix + 9500000
+    press = start + 2345678                               # a contact made while the timer reduces
+    vt.world.press(press, 120000)
+    vt.press_fix(start + 4000000, 9000000)                # and a second fix gesture, released 13 s in
+    vt.advance_to(start + 150000000)
+    fix = vt.fw.onboard.fix
+    assert fix is not None and fix["contacts_used"] + fix["rejected"] == 10
+    beeps = vt.hw.buzzes
+    done = [t for t, p in beeps if p == "..." and t > start][0]          # the fix's result
+    assert done - start > 15000000                                       # it did take a while
+    rec = [r for r in vt.fw.log.records() if r.kind == L.CONTACT][-1]
+    assert rec.seq > 10 and rec.time_state == 1 and abs(rec.utc_us - press) <= 1000
+    ack = [t for t, p in beeps if p == "." and start < t < done]
+    assert len(ack) == 1 and ack[0] - press < 1500000     # written and acknowledged during the fix
+    refused = [t for t, p in beeps if p == "-" and start < t < done]
+    assert len(refused) == 1 and abs(refused[0] - (start + 13000000)) < 100000   # said, not lost
+    loop = vt.fw.status()["loop"]
+    assert loop["service_passes"] > 1000 and loop["faults"] == 0

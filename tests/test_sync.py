@@ -157,7 +157,7 @@ def test_progress_bar_on_long_transfers(tmp_path):
     res = sync.sync(TimerClient(vt.loopback()), conn, progress=True, stream=err)
     text = err.getvalue()
     assert res["new"] >= 260
-    assert text.startswith("\rsync LC-SIM1 [") and text.endswith("/s\n") and text.count("\r") >= 5
+    assert text.startswith("\rsync %s [" % vt.device_id) and text.endswith("/s\n") and text.count("\r") >= 5
     assert "] %d/%d records" % (res["new"], res["new"]) in text
 
 

@@ -75,7 +75,7 @@ def test_push_a_sessions_track_with_its_observer():
 def test_push_a_track_file_is_sent_as_it_is_and_reread():
     doc = reference_session()
     vt = timer_before_first_contact()
-    client = TimerClient(vt.loopback(faults=0.005, seed=3))     # a noisy link: retries, same bytes
+    client = TimerClient(vt.loopback(faults=0.005, seed=4))     # a noisy link: retries, same bytes
     sync.push(client, "instrument", instrument_bytes(doc))
     tf = track_file(doc["track"], doc["observer"])
     res = sync.push(client, "track", tf)
@@ -157,7 +157,7 @@ def test_cli_push_track_over_a_pseudo_terminal(tmp_path):
     assert p.stdout.rstrip("\n").endswith(CAUTION_TEXT)
     lines = q.stdout.splitlines()
     assert lines[0] == "created a new archive at %s" % (tmp_path / "a.sqlite3")
-    assert lines[1].startswith("timer LC-SIM1 log %08x: 0 new record(s)" % vt.fw.log.log_id)
+    assert lines[1].startswith("timer %s log %08x: 0 new record(s)" % (vt.device_id, vt.fw.log.log_id))
     assert q.stdout.rstrip("\n").endswith(CAUTION_TEXT)
 
 
