@@ -25,7 +25,7 @@ returned.  A power cut while appending leaves a torn tail shorter than a record:
 start-up (``Log.open``) cuts it off (a streamed copy of that one segment); that
 record was never acknowledged, and its number is given to the next record.
 
-Reading.  Every read streams: boot, ``read_raw``, ``range_crc``, ``ack`` and the
+Reading.  Every read streams: boot, ``read_raw`` (and the ACK's proof), ``ack`` and the
 record iterators hold one chunk of ``CHUNK_RECORDS`` records (528 bytes) at a
 time, never the log.  A damaged record (a flipped bit: magic, length or CRC
 wrong) is skipped; the reader resynchronises on the next record whose magic,
@@ -65,10 +65,9 @@ surviving seq, ``base_seq`` = the first segment's first seq (acknowledged record
 still on flash are served again: the host keeps them once).  A version-1 or 2
 log (one file: header + records) is converted on open, its identity kept (a
 version-1 log gets a new one with ``origin_seq`` = its ``base_seq``).
-``range_crc(from_seq, last_seq)`` streams the proof an acknowledgement carries: the
-CRC-32 over the records held in that range, each WITHOUT its own last 4 bytes (its
-CRC-32; a CRC-32 over data followed by its own CRC-32 is a constant, so whole records
-would prove only their number; ``device.protocol.proof`` is the host's side).
+The proof an acknowledgement carries is ``device.protocol.held_proof(log, first,
+last)``: streamed through ``read_raw``, over the records held in the range, each
+without its own CRC-32.
 
 A void is a new record (kind VOID) whose ``ref_seq`` names the voided contact;
 a late stamp (kind STAMP) names a contact logged before the clock had time and
@@ -692,20 +691,6 @@ class Log:
             if n >= max_records:
                 break
         return out
-
-    def range_crc(self, from_seq, last_seq):
-        """The acknowledgement's proof: CRC-32 over the packed records held with ``from_seq`` <= seq
-        <= ``last_seq`` (in seq order, damaged ones left out), each without its own CRC-32 (its
-        last 4 bytes; see the module docstring), streamed; None when the range reaches below
-        ``base_seq`` or beyond the last record."""
-        if from_seq < self.base_seq or last_seq >= self.next_seq or last_seq < from_seq:
-            return None
-        crc = 0
-        for seq, raw in self._iter(from_seq):
-            if seq > last_seq:
-                break
-            crc = binascii.crc32(raw[:RECORD_LEN - 4], crc)
-        return crc & 0xFFFFFFFF
 
     def get(self, seq):
         """The record ``seq`` if the log holds it intact, else None."""

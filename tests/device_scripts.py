@@ -44,7 +44,7 @@ N = %(n)d
 FULL_CALL = r'''
 fw = Firmware(hw)
 assert fw.log.next_seq == N + 1 and fw.log.free_records == 0 and fw.log.damaged == 0
-crc = fw.log.range_crc(1, N)
+crc = protocol.held_proof(fw.log, 1, N)
 s = 1
 got = 0
 while s <= N:

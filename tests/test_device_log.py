@@ -17,6 +17,7 @@ from hypothesis import given, settings, strategies as st
 from device import log as L
 from device.firmware import Firmware
 from device.hal import FileStore
+from device.protocol import held_proof
 from device.simhw import MemStore, CuttingStore, FaultyStore, PowerCut
 from device.sim import VirtualTimer
 from engine.timescale import parse_utc
@@ -239,7 +240,7 @@ def test_a_flipped_bit_in_the_middle_keeps_every_later_record_and_never_reuses_i
     # the reads the host makes: in order, with a gap; the proof covers the records held
     got = L.unpack_records(again.read_raw(70, 10))
     assert [r.seq for r in got] == [70, 71, 72, 73, 74, 76, 77, 78, 79, 80]
-    assert again.range_crc(70, 80) == binascii.crc32(b"".join(r.pack()[:-4] for r in got))
+    assert held_proof(again, 70, 80) == binascii.crc32(b"".join(r.pack()[:-4] for r in got))
     assert again.get(75) is None and again.get(76) == kept[75]
     # the firmware says so (status and display) and starts
     fw = Firmware(_hw(store))
@@ -335,8 +336,8 @@ def test_log_identity_survives_acks_and_reopen():
     log.ack(2)
     again = L.Log(st_, id_source=lambda: 1)          # an existing log keeps its identity
     assert (again.log_id, again.origin_seq, again.base_seq) == (0x5EED1234, 1, 3)
-    assert again.range_crc(3, 4) == binascii.crc32(kept[2].pack()[:-4] + kept[3].pack()[:-4])
-    assert again.range_crc(2, 4) is None and again.range_crc(3, 5) is None
+    assert held_proof(again, 3, 4) == binascii.crc32(kept[2].pack()[:-4] + kept[3].pack()[:-4])
+    assert held_proof(again, 2, 4) is None and held_proof(again, 3, 5) is None
 
 
 def test_version_1_log_is_converted_with_a_new_identity():
@@ -394,12 +395,16 @@ def test_full_log_on_the_timer_holds_the_presses_and_writes_them_after_the_ack()
     assert beeps.count(".") == 2 and beeps.count("---") == 3      # once per held press, not at every retry
     from host.timer_client import TimerClient
     c = TimerClient(vt.loopback(faults=0.0))
-    assert c.ack(2)["confirmed_seq"] == 2
+    lg = vt.fw.log
+
+    def ack(first, last):        # what a sync sends: the log's identity, the range, its proof
+        return c.ack(lg.log_id, first, last, held_proof(lg, first, last))
+    assert ack(1, 2)["confirmed_seq"] == 2
     vt.advance_to(vt.now_us() + 1000000)
     recs = vt.fw.log.records()
     assert [r.seq for r in recs] == [3, 4]                   # two more fit; one still held
     assert vt.fw.status()["storage"]["held"] == 1
-    c.ack(4)
+    ack(3, 4)
     vt.advance_to(vt.now_us() + 1000000)
     recs = vt.fw.log.records()
     assert [r.seq for r in recs] == [5] and vt.fw.status()["storage"]["error"] is None
@@ -496,7 +501,7 @@ def test_boot_and_whole_log_ack_stream_a_full_log_in_chunks():
     Watching.biggest = 0
     fw = Firmware(_hw(store))
     assert fw.log.next_seq == n + 1 and fw.log.free_records == 0
-    crc = fw.log.range_crc(1, n)
+    crc = held_proof(fw.log, 1, n)
     fw.log.ack(n)
     assert Watching.biggest <= L.CHUNK
     assert crc == expected and fw.log.records() == [] and fw.log.free_records > 1900
