@@ -185,7 +185,7 @@ class MicroPythonTimer(VirtualTimer):
 
     def _boot(self, budget=None):
         self.store = self.base_store
-        self.hw = SimHardware(self.world, self.store, self.ticks_period)
+        self.hw = SimHardware(self.world, self.store, self.ticks_period, self.uid)
         w_r, w_w = os.pipe()            # world -> MicroPython
         a_r, a_w = os.pipe()            # answers <- MicroPython
         h_r, h_w = os.pipe()            # host link -> MicroPython's standard input
@@ -206,8 +206,10 @@ class MicroPythonTimer(VirtualTimer):
         proc.host_fd = h_w
         self.remote = _Remote(self, proc, w_w, a_r)
         self.fw = self.remote
+        from device.firmware import device_id_from
+        did = self.device_id or device_id_from(self.uid)     # as the CPython virtual timer's firmware
         self.remote.send("I " + json.dumps({"tick": self.hw.ticks_us(), "period": self.ticks_period,
-                                            "device_id": self.device_id, "flash_dir": os.path.abspath(self.store.root),
+                                            "device_id": did, "flash_dir": os.path.abspath(self.store.root),
                                             "screen": self.screen}))
         self.remote.flush()
         self.world.attach(self.hw, self.remote)

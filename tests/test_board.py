@@ -13,7 +13,7 @@ import sys
 
 import pytest
 
-from device import screens
+from device import FIRMWARE_VERSION, PROTOCOL_VERSION, screens
 from host import cmd_board, oled
 from host.errors import UserError
 import mpu
@@ -328,7 +328,7 @@ def test_install_copies_the_tree_and_the_device_id(tmp_path):
     # check runs the installed firmware on the board and reports on it
     p = cli("board", "check", "--port", "/dev/ttyACM7", "--seconds", "0.3", env=env)
     assert p.returncode == 0, p.stderr
-    assert "timer LC-133B2D2F on /dev/ttyACM7: firmware 0.1.0, protocol 1, engine 0.1.0" in p.stdout
+    assert "timer LC-133B2D2F on /dev/ttyACM7: firmware %s, protocol %d, engine 0.1.0" % (FIRMWARE_VERSION, PROTOCOL_VERSION) in p.stdout
     assert "almanac %d-%d" % (YEARS[0], YEARS[-1]) in p.stdout and "clock none" in p.stdout
     assert "free heap" in p.stdout and "no GPS time yet" in p.stdout and "reset it to start the timer" in p.stdout
     p = cli("board", "check", "--port", "/dev/ttyACM7", "--seconds", "0.2", "--json", env=env)
@@ -366,7 +366,7 @@ def test_check_a_running_timer_on_its_link(tmp_path):
         d, env = fake(tmp_path, port=port, micropython=False)
         p = cli("board", "check", "--port", port, env=env)
         assert p.returncode == 0, p.stderr
-        assert "timer LC-133B2D2F on %s is running: firmware 0.1.0, protocol 1" % port in p.stdout
+        assert "timer LC-133B2D2F on %s is running: firmware %s, protocol %d" % (port, FIRMWARE_VERSION, PROTOCOL_VERSION) in p.stdout
         assert "clock locked +-3" in p.stdout and "last record 1" in p.stdout
         assert "hold the button while resetting the board" in p.stdout
         rep = json.loads(cli("board", "check", "--port", port, "--json", env=env).stdout)

@@ -20,8 +20,10 @@ import time
 
 import pytest
 
+from device import PROTOCOL_VERSION
 from device import log as L
 from device import protocol as P
+from device.firmware import device_id_from
 from device.sim import VirtualTimer, read_contacts, conditions_files, read_session
 from engine.timescale import format_utc
 from host.timer_client import TimerClient
@@ -62,7 +64,8 @@ def test_sim_micropython_syncs_every_contact_exactly(tmp_path):
         assert port.startswith("/dev/"), proc.stderr.read() if proc.poll() is not None else port
         with TimerClient(port, timeout=1.0, retries=10) as c:
             hello = c.handshake()
-            assert hello["protocol"] == 1 and hello["device_id"] == "LC-SIM1"
+            board_id = bytes.fromhex((tmp_path / "st" / "board-id").read_text().strip())  # the virtual board
+            assert hello["protocol"] == PROTOCOL_VERSION and hello["device_id"] == device_id_from(board_id)
             deadline = time.time() + 300
             while True:
                 st = c.status()
@@ -81,7 +84,7 @@ def test_sim_micropython_syncs_every_contact_exactly(tmp_path):
             assert info["size"] == 3000
             assert c.file_info("almanac") == {"slot": "almanac", "size": 3000,
                                               "crc32": binascii.crc32(data) & 0xFFFFFFFF}
-            assert c.request(P.HELLO, b"\x03") and c.status()["device_id"] == "LC-SIM1"
+            assert c.request(P.HELLO, b"\x03") and c.status()["device_id"] == hello["device_id"]
         inst = tmp_path / "instrument.json"
         inst.write_bytes(conditions_files(read_session(SESSION))["instrument"])
         p = cli("push", "--port", port, "--instrument", str(inst))
