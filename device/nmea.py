@@ -20,9 +20,9 @@ named in POSIX time and is skipped (counted in ``leap``).
 from engine.timescale import days_from_civil, civil_from_days
 from engine.constants import US_PER_S, US_PER_DAY
 
-MAX_SENTENCE = 82                       # NMEA 0183 limit incl. $ and CR LF [M]
+MAX_SENTENCE = 82                       # NMEA 0183 limit incl. $ and CR LF [from memory]
 EARLIEST_DAY = days_from_civil(2026, 1, 1)   # no correct receiver reports an earlier date to this firmware
-ROLLOVER_DAYS = 1024 * 7                # 1024 GPS weeks (IS-GPS-200 [M])
+ROLLOVER_DAYS = 1024 * 7                # 1024 GPS weeks (IS-GPS-200, 10-bit week number [from memory])
 
 
 def checksum(body):
