@@ -91,7 +91,7 @@ the largest |w| > 3 is dropped and the fix recomputed, until none is left or no
 redundancy remains.  In the structured form (S^-1 - S^-1 A N^-1 A^T S^-1)_ii =
 1/D_i - b_i^T M^-1 b_i / D_i^2 with b_i the contact's row of [U A] and M the
 normal matrix of (y, x): O(m^2) a contact.  The rejection stops at
-``MAX_REJECTED_FRACTION`` (a third) of the usable contacts, counting time
+a third (``MAX_REJECTED_DIV``) of the usable contacts, counting time
 blunders: a fix from fewer is not given; the result says ``consistent: False``
 and ``engine.reduce_session`` refuses it with one line.  A rejected contact
 that fits within 3 sigma when read as another image of the instrument (or the
@@ -154,12 +154,13 @@ FORMAT = "limbclock-fix/1"
 CHI2_2_95 = 5.991464547107979      # chi-square, 2 degrees of freedom, P = 0.95: -2 ln 0.05
 REJECT_W = 3.0                     # |w| above which the worst contact is dropped (common practice)
 SNOOP_BATCH = 200                  # data snooping drops one contact at a time, n // 200 at a time beyond 400
-MAX_REJECTED_FRACTION = 1.0 / 3.0  # at most a third of the usable contacts rejected as blunders (common practice)
+MAX_REJECTED_DIV = 3               # at most a third of the usable contacts rejected as blunders (common practice)
 TIME_GAP_H = 12.0                  # a contact this far (h) from the bulk, with none between, is a time blunder
 MAX_STEP_NM = 60.0
 MAX_ITERATIONS = 40
 MAX_LAT_DEG = 89.0
 CONVERGED_NM = 1e-3                # last step below 2 m ...
+HUBER_CONVERGED_NM = 0.01          # (the robust pass stops below 20 m)
 CONVERGED_QUAD = 1e-6              # ... or below 0.001 sigma (dx' N dx)
 STALLED_QUAD = 1e-3                # ... or no longer shrinking below 0.03 sigma (rounding floor)
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
@@ -237,7 +238,7 @@ def _time_blunders(ts):
     if len(groups) == 1:
         return {}
     main = max(groups, key=len)
-    if (n - len(main)) > MAX_REJECTED_FRACTION * n or sum(1 for g in groups if len(g) == len(main)) > 1:
+    if MAX_REJECTED_DIV * (n - len(main)) > n or sum(1 for g in groups if len(g) == len(main)) > 1:
         return {}
     mt = sorted(ts[k] for k in main)
     med = mt[len(mt) // 2] if len(mt) % 2 else (mt[len(mt) // 2 - 1] + mt[len(mt) // 2]) // 2
@@ -350,11 +351,13 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     groups = {}
     sig_g = []
     sig_img = {}
-    for iid, _, s in session.images:
+    dev_of = {}
+    for iid, dev, s in session.images:
         sig_img[iid] = s if s is not None else opt["sigma_image_arcmin"]
+        dev_of[iid] = dev
     for k, c in enumerate(lc):
         t_us = c.t_us - delay_us if delay_us else c.t_us
-        dev = session.deviation_of(c.image)
+        dev = dev_of[c.image]
         calibrated = session.image_extra.get(c.image, {}).get("source") == "calibrated"
         yaw_mean, yaw_rms = yaw_sigma_arcmin(dev, opt["yaw_sigma_deg"])
         lat, lon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, t_us - epoch)
@@ -402,7 +405,8 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             if g != _NO_GROUP:
                 v += sig_g[g] * sig_g[g]
             sigma_l[i] = math.sqrt(v)
-
+            if i % _TICK_EVERY == 0:
+                coop.tick()
 
     evaluated_at = [None]                       # the point of the last evaluation (``use`` only shrinks)
 
@@ -446,7 +450,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
 
     # K (rows), r, the image accumulators (one short array per image) and a row: allocated once, here,
     # before the iterations fragment the heap, and in short blocks (a board's heap may hold no long one);
-    # unboxed array('d') on a board, lists for another number type (float32 emulation, see _zeros_like)
+    # unboxed array('d') on a board, lists for another number type (float32 emulation: Memory paragraph)
     m_max = q_full + 3
     mk = _zeros if type(cosd(1.0)) is float else (lambda k: [0.0] * k)
     K_rows = [mk(m_max) for _ in range(m_max)]
@@ -460,8 +464,8 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         """Normal equations of the position (and offset) with the shared terms eliminated:
         (N, A^T S^-1 p, p^T S^-1 p, parts kept for the w test).  ``huber``: no shared term, the
         diagonal variances Huber-reweighted, sigma^2 max(1, |p|/(k sigma)) (Huber 1964, in the
-        iteratively reweighted form), for the robust first pass.  K (m x m, row-major), r and the
-        image accumulators are the buffers above, overwritten by the next call."""
+        iteratively reweighted form), for the robust first pass.  K (m rows), r and the image
+        accumulators are the buffers above, overwritten by the next call."""
         q = 0 if huber else q_full
         u = 3 if with_bias else 2
         m = q + u
@@ -631,6 +635,10 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
                 raise FixError("the fix ran off toward a pole: the contacts do not fit the track")
             if with_bias:
                 bias += dx[2]
+            if huber and step < HUBER_CONVERGED_NM and (not with_bias or abs(dx[2]) < HUBER_CONVERGED_NM):
+                # the robust pass only screens gross blunders (5 robust sigma, tens of arcminutes): its last
+                # intercepts, a few metres from here, are good enough, and the full model starts from here
+                return lat_e, lon_e, bias, None, None, None, its
             # converged: a step below 2 m, or below 1/1000 of the fix's own sigma in every direction
             # (dx' N dx < 1e-6), or steps that no longer shrink once below 3 % of sigma: the rounding
             # floor of a single-precision board, where the model's own noise keeps the steps jittering
@@ -692,7 +700,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
 
     def may_reject():
         """One more blunder keeps the rejected contacts within a third of the usable ones."""
-        return 3 * (n_time + len(rejected_w) + 1) <= n_usable
+        return MAX_REJECTED_DIV * (n_time + len(rejected_w) + 1) <= n_usable
 
     lat_e, lon_e, bias = dr_lat, dr_lon, 0.0
     iterations = 0
@@ -757,7 +765,9 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     cnn, cne, cee = Ninv[0][0], Ninv[0][1], Ninv[1][1]
     k2 = ellipse_k2(s0, dof)
     major, minor, axis = ellipse(cnn, cne, cee, k2)
-    offset_sigma = math.sqrt(Ninv[2][2]) * max(1.0, s0) if u == 3 else None
+    # the offset's sigma as an estimate of the whole common offset (dip anomaly included, which the
+    # estimated offset absorbs: (N^-1)_bb carries the dip term's variance on top)
+    offset_sigma = math.sqrt(max(0.0, Ninv[2][2] - s_dip * s_dip)) * max(1.0, s0) if u == 3 else None
     if not consistent:
         warnings.append("inconsistent: %d of %d usable contacts would have to be rejected as blunders (at most a "
                         "third may be): no consistent fix" % (n_time + len(rejected_w) + 1, n_usable))
@@ -765,10 +775,16 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         warnings.append("no redundancy (%d contacts for %d unknowns): the ellipse rests on the a-priori "
                         "error model alone and blunders cannot be detected" % (len(use), u))
     offset_effect = None
+    if u == 2:
+        # how far a common deviation error of 1' moves the fix held at zero: N_xx^-1 N_xb (a priori)
+        N3 = build(use, True)[0]
+        held = invert([N3[0][:2], N3[1][:2]])
+        if held is not None:
+            offset_effect = math.sqrt((held[0][0] * N3[0][2] + held[0][1] * N3[1][2]) ** 2 +
+                                      (held[1][0] * N3[0][2] + held[1][1] * N3[1][2]) ** 2)
+        N3 = held = None
     note = offset_note[0]
     if deviation_offset == "auto" and u == 2 and len(use) >= 4:
-        if note is not None:
-            offset_effect = note[2]
         if note is None or note[0] is None:
             warnings.append("deviation offset not estimable from these azimuths: held at 0 (contacts on both sides "
                             "of the meridian make it estimable)")
@@ -820,7 +836,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         if k < n_lines and lc[k] is c:
             reason, suggest = why.get(k, (None, None))
             entry = {"index": c.index, "utc": format_utc(c.t_us), "body": c.body, "limb": c.limb, "image": c.image,
-                     "deviation_deg": session.deviation_of(c.image), "ho_deg": ho_l[k], "hc_deg": hc_l[k],
+                     "deviation_deg": dev_of[c.image], "ho_deg": ho_l[k], "hc_deg": hc_l[k],
                      "zn_deg": zn_l[k], "intercept_nm": icpt_l[k], "residual_nm": p_l[k], "sigma_nm": sigma_l[k],
                      "used": used[k] != 0.0, "reason": reason, "direction": "rising" if rate_l[k] >= 0.0 else "setting",
                      "suggest": suggest}
@@ -850,7 +866,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             "deviation_offset_arcmin": bias if u == 3 else None, "deviation_offset_estimated": u == 3,
             "deviation_offset_sigma_arcmin": offset_sigma, "deviation_offset_effect_nm": offset_effect,
             "sigma0": s0, "dof": dof, "unknowns": u, "consistent": consistent, "contacts_usable": n_usable,
-            "rejection_limit": n_usable // 3, "rejected_blunders": blunders,
+            "rejection_limit": n_usable // MAX_REJECTED_DIV, "rejected_blunders": blunders,
             "rejected_time_blunders": time_blunders, "rejected_duplicates": duplicates,
             "epoch_contact": epoch_contact,
             "dr": {"lat_deg": dr_lat, "lon_deg": dr_lon}, "iterations": iterations,
