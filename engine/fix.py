@@ -804,6 +804,11 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     Ninv = parts = None
     zn_l = p_l = zn0_l = vn_l = ve_l = grp_l = None
     K_rows = r_buf = acc_g = h_buf = w_buf = None
+    out_contacts = [None] * len(contacts)       # the report's lists at their full length first (the
+    images = [None] * len(contacts)             # entries' places hold their utc text meanwhile)
+    for j, c in enumerate(contacts):
+        images[j] = c.image
+        out_contacts[j] = format_utc(c.t_us)
     used = _zeros(n_lines)                      # 1.0 for a line in use
     for i in use:
         used[i] = 1.0
@@ -829,20 +834,20 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
         if k in rejected_w:
             why[k] = _reject_reason(session, alm, c, t_us, dev_l[k], lat, lon, p_l[k], sigma_l[k], rejected_w[k],
                                     bias, obs, dut1_us, opt)
-    out_contacts = [None] * len(contacts)
+    dev_l = refr_l = var_l = t_l = None         # (not needed by the entries)
     rejected = []
     k = 0                                       # the next line (lines are in the contacts' order)
     for j, c in enumerate(contacts):
         if k < n_lines and lc[k] is c:
             reason, suggest = why.get(k, (None, None))
-            entry = {"index": c.index, "utc": format_utc(c.t_us), "body": c.body, "limb": c.limb, "image": c.image,
+            entry = {"index": c.index, "utc": out_contacts[j], "body": c.body, "limb": c.limb, "image": c.image,
                      "deviation_deg": dev_of[c.image], "ho_deg": ho_l[k], "hc_deg": hc_l[k],
                      "zn_deg": zn_l[k], "intercept_nm": icpt_l[k], "residual_nm": p_l[k], "sigma_nm": sigma_l[k],
                      "used": used[k] != 0.0, "reason": reason, "direction": "rising" if rate_l[k] >= 0.0 else "setting",
                      "suggest": suggest}
             k += 1
         else:
-            entry = {"index": c.index, "utc": format_utc(c.t_us), "body": c.body, "limb": c.limb, "image": c.image,
+            entry = {"index": c.index, "utc": out_contacts[j], "body": c.body, "limb": c.limb, "image": c.image,
                      "deviation_deg": None, "ho_deg": None, "hc_deg": None, "zn_deg": None, "intercept_nm": None,
                      "residual_nm": None, "sigma_nm": None, "used": False, "reason": reasons.get(c.index),
                      "direction": None, "suggest": None}
@@ -862,7 +867,7 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
                         % (len(duplicates), ", ".join(str(i) for i in duplicates)))
     return {"format": FORMAT, "utc": format_utc(epoch), "lat_deg": lat_e, "lon_deg": lon_e,
             "ellipse_95": {"major_nm": major, "minor_nm": minor, "major_axis_deg": axis},
-            "contacts_used": contacts_used, "rejected": rejected, "images": [c.image for c in contacts],
+            "contacts_used": contacts_used, "rejected": rejected, "images": images,
             "deviation_offset_arcmin": bias if u == 3 else None, "deviation_offset_estimated": u == 3,
             "deviation_offset_sigma_arcmin": offset_sigma, "deviation_offset_effect_nm": offset_effect,
             "sigma0": s0, "dof": dof, "unknowns": u, "consistent": consistent, "contacts_usable": n_usable,
