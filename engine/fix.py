@@ -161,6 +161,7 @@ MAX_ITERATIONS = 40
 MAX_LAT_DEG = 89.0
 CONVERGED_NM = 1e-3                # last step below 2 m ...
 HUBER_CONVERGED_NM = 0.01          # (the robust pass stops below 20 m)
+LINEAR_STEP_NM = 0.002             # a last step below 4 m moves the intercepts linearly (no new evaluation)
 CONVERGED_QUAD = 1e-6              # ... or below 0.001 sigma (dx' N dx)
 STALLED_QUAD = 1e-3                # ... or no longer shrinking below 0.03 sigma (rounding floor)
 HUBER_K = 1.5                      # Huber's constant, in a-priori sigmas (Huber 1964; common practice)
@@ -650,6 +651,17 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             prev_quad = quad
         if not converged and not huber:
             warnings.append("the fix did not converge in %d iterations" % MAX_ITERATIONS)
+        if converged and step < LINEAR_STEP_NM and (not with_bias or abs(dx[2]) < LINEAR_STEP_NM):
+            # the last step is a few metres: the intercepts move as the linear model says (the neglected terms,
+            # the lines' own curvature and dHo/dD - 1, are a few per cent of the step: below 1e-4 nmi), so
+            # the model is not evaluated again for it
+            for k, i in enumerate(use):
+                if k % _TICK_EVERY == 0:
+                    coop.tick()
+                z = zn_l[i]
+                v = p_l[i] - (cosd(z) * dx[0] + sind(z) * dx[1])
+                p_l[i] = v + dx[2] if with_bias else v
+            evaluated_at[0] = (lat_e, lon_e, bias, epoch)
         evaluate(use, lat_e, lon_e, bias)
         N, rhs, ptp, parts = build(use, with_bias, huber)
         Ninv = invert(N)
@@ -789,9 +801,12 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
             warnings.append("deviation offset not estimable from these azimuths: held at 0 (contacts on both sides "
                             "of the meridian make it estimable)")
         else:
+            both = min(rate_l[i] for i in use) < 0.0 < max(rate_l[i] for i in use)
             warnings.append("deviation offset not estimable from these contacts: held at 0 (estimated, the fix would "
                             "scatter %.1f nmi rms against %.1f held; a common deviation error of 1' moves it %.1f nmi; "
-                            "contacts on both sides of the meridian make it estimable)" % (note[0], note[1], note[2]))
+                            "%s)" % (note[0], note[1], note[2],
+                                     "calibrated images or a better-known DR velocity would make it estimable" if both
+                                     else "contacts on both sides of the meridian make it estimable"))
     spread = _azimuth_spread([zn_l[i] for i in use])
     if spread < 30.0:
         warnings.append("poor geometry: the lines of position span only %.0f deg of azimuth" % spread)
@@ -809,52 +824,51 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
     for j, c in enumerate(contacts):
         images[j] = c.image
         out_contacts[j] = format_utc(c.t_us)
+    refr_l = var_l = None                       # (not needed by the report)
     used = _zeros(n_lines)                      # 1.0 for a line in use
     for i in use:
         used[i] = 1.0
     contacts_used = len(use)
     use = None
-    # first the numbers of every line (rejected ones too) at the fix, and its intercept at the DR, into
-    # columns; then the report's entries, one after the other (so that the model's garbage does not
-    # scatter them over a board's heap)
-    ho_l, hc_l, zn_l, p_l, icpt_l = _zeros(n_lines), _zeros(n_lines), _zeros(n_lines), _zeros(n_lines), \
-        _zeros(n_lines)
-    if type(cosd(1.0)) is not float:            # another number type (float32 emulation): keep it
-        ho_l, hc_l, zn_l, p_l, icpt_l = list(ho_l), list(hc_l), list(zn_l), list(p_l), list(icpt_l)
-    why = {}
-    for k in range(n_lines):
-        c = lc[k]
+    # first every entry, one after the other (its dict is the largest block), then the numbers of every
+    # line (rejected ones too) at the fix and its intercept at the DR, filled in: the model's garbage then
+    # falls between small numbers, not between the entries
+    rejected = []
+    k = 0                                       # the next line (lines are in the contacts' order)
+    for j, c in enumerate(contacts):
+        line = k < n_lines and lc[k] is c
+        out_contacts[j] = {"index": c.index, "utc": out_contacts[j], "body": c.body, "limb": c.limb,
+                           "image": c.image, "deviation_deg": dev_of[c.image] if line else None, "ho_deg": None,
+                           "hc_deg": None, "zn_deg": None, "intercept_nm": None, "residual_nm": None,
+                           "sigma_nm": sigma_l[k] if line else None, "used": line and used[k] != 0.0,
+                           "reason": reasons.get(c.index),
+                           "direction": ("rising" if rate_l[k] >= 0.0 else "setting") if line else None,
+                           "suggest": None}
+        if not (line and used[k] != 0.0):
+            rejected.append(c.index)
+        if line:
+            k += 1
+    k = 0
+    for j, c in enumerate(contacts):
+        if not (k < n_lines and lc[k] is c):
+            continue
+        entry = out_contacts[j]
         t_us = t_l[k]
         dev = dev_l[k] + bias / 60.0
         lat, lon = dr_position(lat_e, lon_e, tr.course_deg, tr.speed_kn, t_us - epoch)
         ho, hc, zn = contact_terms(alm, c.body, c.limb, dev, t_us, lat, lon, obs, dut1_us)
         dlat, dlon = dr_position(dr_lat, dr_lon, tr.course_deg, tr.speed_kn, t_us - epoch)
         ho_dr, hc_dr, _ = contact_terms(alm, c.body, c.limb, dev, t_us, dlat, dlon, obs, dut1_us)
-        ho_l[k], hc_l[k], zn_l[k], p_l[k], icpt_l[k] = ho, hc, zn, (ho - hc) * 60.0, (ho_dr - hc_dr) * 60.0
+        p = (ho - hc) * 60.0
+        entry["ho_deg"] = ho
+        entry["hc_deg"] = hc
+        entry["zn_deg"] = zn
+        entry["intercept_nm"] = (ho_dr - hc_dr) * 60.0
+        entry["residual_nm"] = p
         if k in rejected_w:
-            why[k] = _reject_reason(session, alm, c, t_us, dev_l[k], lat, lon, p_l[k], sigma_l[k], rejected_w[k],
-                                    bias, obs, dut1_us, opt)
-    dev_l = refr_l = var_l = t_l = None         # (not needed by the entries)
-    rejected = []
-    k = 0                                       # the next line (lines are in the contacts' order)
-    for j, c in enumerate(contacts):
-        if k < n_lines and lc[k] is c:
-            reason, suggest = why.get(k, (None, None))
-            entry = {"index": c.index, "utc": out_contacts[j], "body": c.body, "limb": c.limb, "image": c.image,
-                     "deviation_deg": dev_of[c.image], "ho_deg": ho_l[k], "hc_deg": hc_l[k],
-                     "zn_deg": zn_l[k], "intercept_nm": icpt_l[k], "residual_nm": p_l[k], "sigma_nm": sigma_l[k],
-                     "used": used[k] != 0.0, "reason": reason, "direction": "rising" if rate_l[k] >= 0.0 else "setting",
-                     "suggest": suggest}
-            k += 1
-        else:
-            entry = {"index": c.index, "utc": out_contacts[j], "body": c.body, "limb": c.limb, "image": c.image,
-                     "deviation_deg": None, "ho_deg": None, "hc_deg": None, "zn_deg": None, "intercept_nm": None,
-                     "residual_nm": None, "sigma_nm": None, "used": False, "reason": reasons.get(c.index),
-                     "direction": None, "suggest": None}
-        if not entry["used"]:
-            rejected.append(c.index)
-        out_contacts[j] = entry
-    why = ho_l = hc_l = zn_l = p_l = icpt_l = None
+            entry["reason"], entry["suggest"] = _reject_reason(session, alm, c, t_us, dev_l[k], lat, lon, p,
+                                                               sigma_l[k], rejected_w[k], bias, obs, dut1_us, opt)
+        k += 1
 
     blunders = sorted([lc[j].index for j in rejected_w])
     if blunders:
