@@ -122,12 +122,20 @@ Memory (the same code reduces on the timer): MicroPython ignores
 ``__slots__`` and boxes every float, so an object per contact with a dozen
 numbers costs about 900 bytes on its 64-bit port: the working data of the
 usable contacts ("lines", numbered in the session's order) are parallel
-array('d') columns, a set of lines is a list of indices; the shared terms'
-accumulators are one array('d') (lists when the numbers are not plain floats,
-so tests/test_fix_float32.py's float32 emulation stays float32).  Nothing
-grows faster than the number of contacts.  Convergence: a step below 2 m, or
-below 0.001 sigma, or steps that stop shrinking below 0.03 sigma (the rounding
-floor in single precision; tests/test_fix_float32.py).
+array('d') columns, allocated at their full length before the model is first
+evaluated (appends would leave a trail of holes in a fragmented heap); a set of
+lines is a list of indices; the normal equations' buffers are short array('d')
+blocks allocated once (lists when the numbers are not plain floats, so
+tests/test_fix_float32.py's float32 emulation stays float32).  Nothing grows
+faster than the number of contacts.  The report (a 17-key dict per contact, its
+largest part) is built after the working data are dropped: its lists and utc
+texts first, then the entries one after the other, then their numbers.
+
+Convergence: a step below 2 m, or below 0.001 sigma, or steps that stop
+shrinking below 0.03 sigma (the rounding floor in single precision;
+tests/test_fix_float32.py).  A last step below ``LINEAR_STEP_NM`` moves the
+intercepts as the linear model says instead of evaluating the model again (the
+neglected terms are a few per cent of 4 m); the robust pass stops at 20 m.
 
 Result (``limbclock-fix/1``; DEVELOPERS.md "The fix" lists every key):
 ``format, utc, lat_deg, lon_deg, ellipse_95 {major_nm, minor_nm,
