@@ -3,9 +3,11 @@
 The on-board path (``device.onboard``): the contacts in the timer's log (unlabelled, as pressed) ->
 ``limbclock-session/1`` text -> ``engine.reduce_session`` (identification of the images, then the
 fix).  Sessions: the first 30 contacts of ``vectors/sessions/sun_moon.json`` (Sun and Moon, contact
-times from DE421 + ERFA), also all 42, and the labelled variant (no identification).
+times from DE421 + ERFA), also all 42, and labelled (no identification, the session parsed first and
+its text dropped, as the timer does): 30 of them, and the first 100 of ``long_day``.
 
-1. Heap (MicroPython unix port, fixed heap, ``tests/mpu.py``): the smallest contiguous free heap
+1. Heap (MicroPython unix port, fixed heap, ``tests/mpu.py``), the fix now and the dense-covariance
+   fix it replaced (``tests/fix_dense.py``, swapped in) side by side: the smallest contiguous free heap
    in which the call succeeds (bisection to 2 KB; "4 layouts": in each of ``mpu.PADS``, since
    where blocks fall changes the need by a few KB), after the code and the timer's files are loaded
    (a board freezes the modules into flash: their bytecode takes no heap).  The port is 64-bit;
@@ -204,19 +206,29 @@ def run():
     if not mpu.available():
         print("   unix port not installed (pip install -e '.[test]'): skipped")
     else:
-        labelled = ("import gc, json, engine\nfrom engine import almanac, session, fix, identify, model\n"
-                    "alm = almanac.load(keep_years=1)\ntext = %r\nalm.position('sun', %d)\n")
+        parsed = ("import gc, json, engine\nfrom engine import almanac, session, fix, identify, model\n"
+                  "alm = almanac.load(keep_years=1)\n_text = %r\nalm.position('sun', %d)\n")
+        call_parsed = ("s = session.parse_session(_text, alm)\n_text = None\nr = engine.reduce_session(s, alm)\n"
+                       "r = s = None\n")
+        dense = "import sys\nsys.path.append(%r)\nimport fix_dense\nfix.solve_fix = fix_dense.solve_fix\n" % TESTS
         from engine.timescale import parse_utc
-        t0 = parse_utc(doc30["contacts"][0]["utc"])
-        rows = [("on-board, 30 contacts, 4 layouts", S.setup_code(doc30, tempfile.mkdtemp()), S.CALL, mpu.PADS),
-                ("on-board, 30 contacts, 1 layout", S.setup_code(doc30, tempfile.mkdtemp()), S.CALL, (0,)),
-                ("on-board, 42 contacts, 1 layout", S.setup_code(doc42, tempfile.mkdtemp()), S.CALL, (0,)),
-                ("reduce_session, 30 labelled, 1 layout", labelled % (json.dumps(doc30), t0),
-                 "r = engine.reduce_session(text, alm)\n", (0,))]
-        for label, setup, call, pads in rows:
+        doc100 = S.session_doc("long_day", 100)
+        t0, t100 = parse_utc(doc30["contacts"][0]["utc"]), parse_utc(doc100["contacts"][0]["utc"])
+        rows = [("on-board, 30 contacts identified on board, 4 layouts", 64, S.setup_code(doc30, tempfile.mkdtemp()),
+                 S.CALL, mpu.PADS),
+                ("on-board, 42 contacts identified on board, 1 layout", None,
+                 S.setup_code(doc42, tempfile.mkdtemp()), S.CALL, (0,)),
+                ("reduce_session, 30 labelled, 1 layout", None, parsed % (json.dumps(doc30), t0), call_parsed, (0,)),
+                ("reduce_session, 100 labelled (long_day), 1 layout", 128, parsed % (json.dumps(doc100), t100),
+                 call_parsed, (0,))]
+        print("   %-52s %9s %9s   %s" % ("", "fix now", "dense fix", "(KB on this 64-bit port; a 32-bit board needs"
+                                                                       " about half)"))
+        for label, target, setup, call, pads in rows:
             kb = mpu.min_arena(setup, call, lo=16384, hi=393216, step=2048, pads=pads) / 1024.0
-            print("   %-46s %6.0f KB here  (32-bit board, estimated: %4.0f KB; target 64 KB, ratio %.2f)"
-                  % (label, kb, kb / 2.0, kb / 2.0 / 64.0))
+            old = mpu.min_arena(setup + dense, call, lo=16384, hi=524288, step=2048, pads=pads) / 1024.0
+            aim = ("target %d KB here (%d on a board): %s" % (target, target // 2, "met" if kb <= target else "NOT met")
+                   if target else "")
+            print("   %-52s %6.0f KB %6.0f KB   %s" % (label, kb, old, aim))
 
     grown = _wasm_heap_growth(mpy)
     if grown is not None:

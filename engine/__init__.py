@@ -29,7 +29,9 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
     and the fix is solved again; the relabelling is kept only when the contact
     is then accepted, and its ``reason`` and the warnings say so (the label the
     navigator wrote is kept in ``labelled``).  ``alm`` defaults to the shipped
-    almanac.  Raises ``ValueError`` subclasses on bad input."""
+    almanac.  Raises ``ValueError`` subclasses on bad input, and ``engine.fix.FixError``
+    ("inconsistent: ...") when the fix's rejection limit stopped it (``consistent``
+    False: more than a third of the contacts would be blunders)."""
     from engine import session as _session
     from engine import fix as _fix
     if alm is None:
@@ -52,6 +54,12 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
             result = None       # one result (its per-contact report) on a board's heap at a time
             result = _relabel(s, alm, at_us, deviation_offset, changed, _fix)
     result["warnings"] = list(warnings) + result["warnings"]
+    if result.get("consistent") is False:
+        # more than a third of the contacts would be blunders: no position is given (engine/fix.py)
+        raise _fix.FixError("inconsistent: %d of %d contacts misfit; more than a third would be rejected as "
+                            "blunders, so no fix is given" % (len(result["rejected_blunders"]) +
+                                                              len(result["rejected_time_blunders"]) + 1,
+                                                              result["contacts_usable"]))
     return result
 
 

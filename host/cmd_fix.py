@@ -11,9 +11,9 @@ from host.cautions import CAUTION_LINES
 def register(sub):
     p = sub.add_parser("fix", help="compute the fix and its 95%% ellipse from a session's timed contacts")
     p.add_argument("session", help="limbclock-session/1 JSON file ('-' for standard input)")
-    p.add_argument("--at", metavar="UTC", help="fix epoch (ISO 8601 UTC; default: the last contact)")
+    p.add_argument("--at", metavar="UTC", help="fix epoch (ISO 8601 UTC; default: the last contact used)")
     p.add_argument("--offset", choices=("auto", "on", "off"), default="auto",
-                   help="estimate a common deviation offset: auto (when estimable), on, off")
+                   help="estimate a common deviation offset: auto (when the geometry determines it), on, off")
     p.add_argument("--keep-labels", action="store_true",
                    help="never read a rejected contact as the image or limb it fits (default: do, and say so)")
     p.add_argument("--json", action="store_true", help="machine-readable output (limbclock-fix/1)")
@@ -49,7 +49,8 @@ def format_fix(r):
            "  contacts used %d of %d, unit weight s0 %.2f, %d iterations"
            % (r["contacts_used"], len(r["contacts"]), r["sigma0"], r["iterations"])]
     if r["deviation_offset_estimated"]:
-        out.append("  deviation offset (estimated, common to all images): %+.1f'" % r["deviation_offset_arcmin"])
+        out.append("  deviation offset (estimated, common to all images): %+.1f' +- %.1f'"
+                   % (r["deviation_offset_arcmin"], r.get("deviation_offset_sigma_arcmin") or 0.0))
     else:
         out.append("  deviation offset: not estimated (held at 0)")
     out.append("")

@@ -22,6 +22,16 @@ def load(name):
         return json.load(f)
 
 
+def truth_at(d, utc):
+    """The true position at ``utc`` (the fix's epoch: the last contact USED), on the session's true track
+    (the exact rhumb line of vectors/generate_schedule.py, outside the engine)."""
+    import numpy as np
+    from engine.timescale import parse_utc
+    from vectors.generate_schedule import rhumb
+    lat, lon = rhumb(d["truth"]["track"], np.array([parse_utc(utc)], dtype=np.int64))
+    return float(lat[0]), float(lon[0])
+
+
 DOCS = {n: load(n) for n in GOOD}
 SLOW = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -54,7 +64,9 @@ def test_one_image_spacing_blunder_is_flagged(name, pick, up):
     assert r["rejected"] == [k]
     reason = r["contacts"][k]["reason"]
     assert "probably mislabelled" in reason and "%s->%s" % (ids[j], true_id) in reason
-    assert distance_nm(r["lat_deg"], r["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"]) < 0.3
+    # the fix is for the last contact used (the one before when the last one is the blunder)
+    assert r["utc"] == r["contacts"][max(i for i in range(len(d["contacts"])) if i != k)]["utc"]
+    assert distance_nm(r["lat_deg"], r["lon_deg"], *truth_at(d, r["utc"])) < 0.3
     # the second pass reads it as the image it fits and uses it
     r2 = engine.reduce_session(json.dumps(d), ALM)
     assert r2["rejected"] == [] and r2["images"][k] == true_id and r2["contacts"][k]["labelled"]["image"] == ids[j]
@@ -110,24 +122,35 @@ def test_too_few_contacts_and_unidentified():
 
 
 def test_ellipse_grows_with_noisy_contacts():
-    # several arcminutes of extra scatter in altitude: s0 rises above 1 and the ellipse follows it
+    # 3 s of extra timing scatter (about 0.5' of altitude, beyond the model's 0.25 s): s0 rises above 1 and the
+    # ellipse follows it
     import random
     d = json.loads(json.dumps(DOCS["sun_moon"]))
     clean = engine.reduce_session(json.dumps(d), ALM)
     rnd = random.Random(5)
     from engine.timescale import parse_utc, format_utc
-    for c in d["contacts"]:
-        c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 20.0) * 1e6))   # 20 s ~ 3-4'
-    noisy = engine.reduce_session(json.dumps(d), ALM)
-    assert noisy["sigma0"] > 1.0
+    noisy_doc = json.loads(json.dumps(d))
+    for c in noisy_doc["contacts"]:
+        c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 3.0) * 1e6))
+    noisy = engine.reduce_session(json.dumps(noisy_doc), ALM)
+    assert noisy["sigma0"] > 1.0 and noisy["consistent"]
     assert noisy["ellipse_95"]["major_nm"] > clean["ellipse_95"]["major_nm"]
     err = distance_nm(noisy["lat_deg"], noisy["lon_deg"], d["truth"]["lat_deg"], d["truth"]["lon_deg"])
     assert err < 2.0 * noisy["ellipse_95"]["major_nm"]
+    # 20 s on every contact (about 4'): the contacts do not fit the error model at all; the blunder tests would
+    # reject more than a third (the dense solver used to drop 20 of 42 and land 7 nmi off, outside its 9 nmi
+    # ellipse), so no fix is given
+    for c in d["contacts"]:
+        c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 20.0) * 1e6))
+    with pytest.raises(fix.FixError, match="^inconsistent: 15 of 42 contacts misfit"):
+        engine.reduce_session(json.dumps(d), ALM)
 
 
 def test_linear_algebra_against_numpy():
-    # the fix keeps only a Cholesky factor (board heap); check it and its solves against numpy.linalg
+    # the dense reference solver (tests/fix_dense.py, which tests/test_fix_structured.py checks the fix against)
+    # keeps only a Cholesky factor; check it and its solves against numpy.linalg
     import numpy as np
+    import fix_dense as fix
     rng = np.random.default_rng(4)
     a = rng.normal(size=(9, 9))
     s = a @ a.T + 9 * np.eye(9)

@@ -80,6 +80,14 @@ SCENARIOS = [
      "observer": {"eye_height_m": 2.4, "temperature_c": 24.0, "pressure_hpa": 1019.0},
      "from": "2034-07-02T08:30:00Z", "to": "2034-07-02T23:30:00Z",
      "pairs": [("sun", "lower")], "dr_error_nm": (-40.0, -25.0)},
+    {"name": "long_day", "what": "motor-sailer at 4 kn, a long day: Sun and waxing Moon, both limbs, rising and "
+                                 "setting (over a hundred contacts, for the on-board heap)",
+     "truth": {"utc": "2029-04-20T07:00:00Z", "lat_deg": 20.3, "lon_deg": -40.2, "course_deg": 300.0,
+               "speed_kn": 4.0},
+     "observer": {"eye_height_m": 2.8, "temperature_c": 23.0, "pressure_hpa": 1017.0},
+     "from": "2029-04-20T08:00:00Z", "to": "2029-04-21T04:00:00Z",
+     "pairs": [("sun", "lower"), ("sun", "upper"), ("moon", "lower"), ("moon", "upper")],
+     "dr_error_nm": (28.0, -21.0)},
 ]
 MISLABEL = {"name": "mislabelled", "base": "morning_run", "index": 6,
             "what": "the morning run with contact 6 written down as the next image up"}
