@@ -61,10 +61,7 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
         except ImportError:
             _identify = None
         if _identify is not None:
-            ident = _identify.identify(s, alm)
-            warnings = _identify.apply(s, ident) + ident["warnings"]
-            warnings.extend(_fallback(s, ident))
-            ident = _identification_summary(ident)      # a few numbers held through the fix, not the result
+            warnings, ident = _identify.identify_for_fix(s, alm)
     try:
         result = _fix.solve_fix(s, alm, at_us, deviation_offset)
     except _fix.FixError as exc:
@@ -85,37 +82,6 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
         result["identification"] = {"searched": ident["searched"], "dr_explains": ident["dr_explains"],
                                     "candidates": ident["candidates"], "fallback": ident["fallback"]}
     return result
-
-
-def _identification_summary(ident):
-    """What the fix and its doubts need of an identification result (the rest is dropped): its
-    ``searched``, ``consistent``, ``dr_explains``, ``candidates``, ``fallback``, the probability of
-    the most probable assignment (``best_p``) and the contacts left ambiguous (``ambiguous``)."""
-    return {"candidates": ident["candidates"], "searched": ident["searched"], "consistent": ident["consistent"],
-            "dr_explains": ident["dr_explains"], "fallback": ident.get("fallback", False),
-            "best_p": ident["hypotheses"][0]["probability"] if ident["hypotheses"] else 0.0,
-            "ambiguous": [c["index"] for c in ident["contacts"]
-                          if c["ambiguous"] and (c["alternatives"] or c["fits"])]}
-
-
-def _fallback(s, ident):
-    """When fewer than three usable contacts carry an image after identification and the most
-    probable assignment fits, read the unlabelled contacts that fit it as it says (in place)."""
-    ident["fallback"] = False
-    usable = [c for c in s.contacts if not c.void and getattr(c, "dup_of", None) is None]
-    if sum(1 for c in usable if c.image is not None) >= 3 or not ident["consistent"] or not ident["hypotheses"]:
-        return []
-    images = ident["hypotheses"][0]["images"]
-    by_index = dict((c.index, c) for c in s.contacts)
-    notes = []
-    for k, rc in enumerate(ident["contacts"]):
-        c = by_index[rc["index"]]
-        if c.image is None and rc["fits"]:
-            c.image = images[k]
-            notes.append("contact %d read as %s, the most probable assignment (confidence %.2f)"
-                         % (c.index, c.image, rc["confidence"]))
-    ident["fallback"] = bool(notes)
-    return notes
 
 
 def _no_position(ident):

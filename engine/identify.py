@@ -817,27 +817,14 @@ def _run(p, radius_nm, use_dr, stage_local):
     return hyps, searched
 
 
-def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_CONFIDENCE, use_dr=True):
-    """Identify the unlabelled contacts of a session (labels given are kept as constraints).
-
-    Returns a dict: ``contacts`` (per usable contact: ``index``, ``image`` (assigned or given,
-    None when not confident), ``given`` (bool), ``confidence``, ``alternatives`` (other images it
-    may be), ``ambiguous``, ``fits`` (False: it fits no image at the best position: a blunder)),
-    ``hypotheses`` (ranked: ``images`` per contact, ``cost`` (-2 ln of the weight),
-    ``probability``, ``offset_nm`` (north, east) from the DR, ``lat_deg``, ``lon_deg``, ``fits``),
-    ``candidates`` (distinct positions at the last contact that fit the contacts: ``utc``,
-    ``lat_deg``, ``lon_deg``, ``probability``, ``rms_arcmin``, ``dr_distance_nm``),
-    ``searched`` ("dr": the DR explains the contacts; "globe": it does not, the whole globe was
-    searched), ``consistent`` (the best hypothesis fits), ``misfit_labels`` (labelled contacts
-    that fit another image far better), ``warnings``, ``dr_sigma_nm``, ``radius_nm``.
-
-    ``radius_nm`` limits the search to that distance from the DR (no globe); ``use_dr=False``
-    ignores the DR (a cold start)."""
+def _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr):
+    """Search, then read every contact at the best hypotheses (the rest with the forward
+    model).  Returns (problem, carried [(logz, hypothesis, images, weights, fits)] best first,
+    their probabilities, searched); the problem's tables are dropped."""
     p = _setup(session, alm, dr_sigma_nm)
     hyps, searched = _run(p, radius_nm, use_dr, LOCAL_FIRST)
     n = len(p.contacts)
     rest = [i for i in range(n) if i not in p.rows]
-    # every contact read at the best hypotheses (the rest with the forward model): images and weights
     best_logz = hyps[0][0]
     carried = []
     for h in hyps[:MAX_HYPOTHESES]:
@@ -850,61 +837,163 @@ def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_
         logz = h[0] - 0.5 * extra
         n_in = h[8] + sum(1 for i in rest if wts[i] >= 0.5)
         carried.append((logz, h, lab, wts, _fits(h[4] + extra, n_in, n)))
+    hyps = rest = None
+    p.ho = p.gha = p.sdec = p.cdec = p.gx = p.gy = p.gz = p.dn = p.de = None     # the tables go
     carried.sort(key=lambda c: -c[0])
     top = carried[0][0]
     weights = [math.exp(c[0] - top) for c in carried]
     total = sum(weights)
-    probs = [w / total for w in weights]
-    best_lab = carried[0][2]
-    best_w = carried[0][3]
+    return p, carried, [w / total for w in weights], searched
+
+
+def _verdict(p, carried, probs, i):
+    """(image index at the best hypothesis, confidence, fits there, image indices the hypotheses
+    of probability >= 0.001 give) of contact number ``i``."""
+    best = carried[0][2][i]
+    conf = 0.0
+    options = []
+    for k in range(len(carried)):
+        li = carried[k][2][i]
+        if li == best:
+            conf += probs[k] * carried[k][3][i]
+        if probs[k] >= 1e-3 and li not in options:
+            options.append(li)
+    return best, conf, carried[0][3][i] >= 0.5, options
+
+
+def _note_ambiguous(p, c, image, conf, fits, options):
+    if not fits and len(options) <= 1:
+        return "contact %d: fits no image (a blunder?); left unidentified" % c.index
+    return "contact %d: image ambiguous (%s, confidence %.2f); left unidentified" % (
+        c.index, " or ".join([p.ids[image]] + [p.ids[o] for o in options if o != image]), conf)
+
+
+def _candidates(p, carried, probs):
+    """The distinct positions (at the last contact) that fit, with probability >= CANDIDATE_P."""
+    cands = []
+    for k in range(len(carried)):
+        h, fit = carried[k][1], carried[k][4]
+        lat, lon = h[1] / DEG, h[2] / DEG
+        if fit and probs[k] >= CANDIDATE_P and \
+                not any(distance_nm(lat, lon, o["lat_deg"], o["lon_deg"]) < SAME_NM for o in cands):
+            cands.append({"utc": format_utc(p.t_ref, 0), "lat_deg": round(lat, 5), "lon_deg": round(lon, 5),
+                          "probability": round(probs[k], 4), "rms_arcmin": round(_rms(h), 3),
+                          "dr_distance_nm": round(distance_nm(p.dr_lat, p.dr_lon, lat, lon), 1)})
+    return cands
+
+
+def _dr_explains(p, carried, use_dr=True):
+    b = carried[0][1]
+    return use_dr and _mahalanobis2(p, b[1], b[2], b[5], b[6], b[7]) <= MAHALANOBIS2_DR
+
+
+def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_CONFIDENCE, use_dr=True):
+    """Identify the unlabelled contacts of a session (labels given are kept as constraints).
+
+    Returns a dict: ``contacts`` (per usable contact: ``index``, ``image`` (assigned or given,
+    None when not confident), ``given`` (bool), ``confidence``, ``alternatives`` (other images it
+    may be), ``ambiguous``, ``fits`` (False: it fits no image at the best position: a blunder)),
+    ``hypotheses`` (ranked: ``images`` per contact, ``cost`` (-2 ln of the weight, relative),
+    ``probability``, ``offset_nm`` (north, east) from the DR, ``lat_deg``, ``lon_deg``, ``fits``),
+    ``candidates`` (distinct positions at the last contact that fit the contacts, with a
+    probability of at least ``CANDIDATE_P``: ``utc``, ``lat_deg``, ``lon_deg``, ``probability``,
+    ``rms_arcmin`` (in sigmas), ``dr_distance_nm``), ``searched`` ("globe", or "dr" when
+    ``radius_nm`` limited the search), ``consistent`` (the best hypothesis fits), ``dr_explains``
+    (it lies within the DR's uncertainty), ``misfit_labels`` (labelled contacts that fit another
+    image far better), ``warnings``, ``dr_sigma_nm``, ``radius_nm``.
+
+    ``radius_nm`` limits the search to that distance from the DR; ``use_dr=False`` ignores the DR
+    (a cold start)."""
+    p, carried, probs, searched = _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr)
     out_contacts = []
     warnings = []
     for i, c in enumerate(p.contacts):
         given = p.lab[i] >= 0
-        conf = 0.0
-        options = []
-        for k in range(len(carried)):
-            li = carried[k][2][i]
-            if li == best_lab[i]:
-                conf += probs[k] * carried[k][3][i]
-            if probs[k] >= 1e-3 and p.ids[li] not in options:
-                options.append(p.ids[li])
-        image = p.ids[best_lab[i]]
-        fits = best_w[i] >= 0.5
+        best, conf, fits, options = _verdict(p, carried, probs, i)
         ambiguous = (not given) and conf < confidence
+        image = p.ids[best]
         out_contacts.append({"index": c.index, "image": None if ambiguous else image, "given": given,
-                             "confidence": round(conf, 4), "alternatives": [o for o in options if o != image],
-                             "ambiguous": ambiguous, "fits": fits})
+                             "confidence": round(conf, 4), "ambiguous": ambiguous, "fits": fits,
+                             "alternatives": [p.ids[o] for o in options if o != best]})
         if ambiguous:
-            if not fits and len(options) <= 1:
-                warnings.append("contact %d: fits no image (%.0f%% a blunder); left unidentified"
-                                % (c.index, 100.0 * (1.0 - best_w[i])))
-            else:
-                warnings.append("contact %d: image ambiguous (%s, confidence %.2f); left unidentified"
-                                % (c.index, " or ".join([image] + [o for o in options if o != image]), conf))
+            warnings.append(_note_ambiguous(p, c, best, conf, fits, options))
     misfit = _misfits(p, carried[0][1])
     for mf in misfit:
         warnings.append("contact %d: labelled %s but fits %s (%.1f' off its label)"
                         % (mf["index"], mf["label"], mf["fits"], mf["label_residual_arcmin"]))
+    top = carried[0][0]
     hyp_out = []
-    cands = []
     for k, (logz, h, lab, wts, fit) in enumerate(carried):
         lat, lon = h[1] / DEG, h[2] / DEG
         north, east = offset_nm(p.dr_lat, p.dr_lon, lat, lon)
         hyp_out.append({"images": [p.ids[j] for j in lab], "cost": round(2.0 * (top - logz), 3),
                         "probability": round(probs[k], 4), "offset_nm": [round(north, 2), round(east, 2)],
                         "lat_deg": round(lat, 5), "lon_deg": round(lon, 5), "fits": fit})
-        if fit and probs[k] >= CANDIDATE_P and \
-                not any(distance_nm(lat, lon, o["lat_deg"], o["lon_deg"]) < SAME_NM for o in cands):
-            cands.append({"utc": format_utc(p.t_ref, 0), "lat_deg": round(lat, 5), "lon_deg": round(lon, 5),
-                          "probability": round(probs[k], 4), "rms_arcmin": round(_rms(h), 3),
-                          "dr_distance_nm": round(distance_nm(p.dr_lat, p.dr_lon, lat, lon), 1)})
-    consistent = bool(hyp_out) and hyp_out[0]["fits"]
-    b = carried[0][1]
-    dr_explains = use_dr and _mahalanobis2(p, b[1], b[2], b[5], b[6], b[7]) <= MAHALANOBIS2_DR
-    return {"contacts": out_contacts, "hypotheses": hyp_out, "candidates": cands, "searched": searched,
-            "consistent": consistent, "dr_explains": dr_explains, "misfit_labels": misfit, "warnings": warnings,
-            "dr_sigma_nm": p.dr_sigma, "radius_nm": radius_nm if radius_nm is not None else 4.0 * p.dr_sigma + 60.0}
+    return {"contacts": out_contacts, "hypotheses": hyp_out, "candidates": _candidates(p, carried, probs),
+            "searched": searched, "consistent": carried[0][4], "dr_explains": _dr_explains(p, carried, use_dr),
+            "misfit_labels": misfit, "warnings": warnings, "dr_sigma_nm": p.dr_sigma,
+            "radius_nm": radius_nm if radius_nm is not None else 4.0 * p.dr_sigma + 60.0}
+
+
+def identify_for_fix(session, alm, confidence=DEFAULT_CONFIDENCE):
+    """What ``engine.reduce_session`` does before the fix, lean on a board's heap (no per-contact
+    report): write the confident images into the session's unlabelled contacts (and repeats of
+    them); when fewer than three usable contacts then carry an image and the most probable
+    assignment fits, write its images for the unlabelled contacts that fit it (``fallback``).
+    Returns (notes, summary): a note of the images written, one per contact left out; the summary
+    has ``searched``, ``consistent``, ``dr_explains``, ``candidates``, ``fallback``, ``best_p``
+    (the most probable assignment's probability) and ``ambiguous`` (indices of the contacts whose
+    image could not be told)."""
+    p, carried, probs, searched = _weigh(session, alm, None, None, True)
+    notes = []
+    ambiguous = []
+    pending = []
+    labelled = 0
+    done = []                       # "4 as i05" parts of one note (one string, not one per contact)
+    low = 1.0
+    for i, c in enumerate(p.contacts):
+        if p.lab[i] >= 0:
+            labelled += 1
+            continue
+        best, conf, fits, options = _verdict(p, carried, probs, i)
+        if conf >= confidence:
+            c.image = p.ids[best]
+            labelled += 1
+            done.append("%d as %s" % (c.index, c.image))
+            low = min(low, conf)
+            continue
+        notes.append(_note_ambiguous(p, c, best, conf, fits, options))
+        if fits or len(options) > 1:
+            ambiguous.append(c.index)
+        if fits:
+            pending.append((c, best, conf))
+    if done:
+        notes.insert(0, "contact%s identified (confidence %.2f or more): %s"
+                     % ("s" if len(done) > 1 else "", low, ", ".join(done)))
+        done = None
+    fallback = labelled < 3 and carried[0][4] and bool(pending)
+    if fallback:
+        for c, best, conf in pending:
+            c.image = p.ids[best]
+            notes.append("contact %d read as %s, the most probable assignment (confidence %.2f)"
+                         % (c.index, c.image, conf))
+    _repeats(session)
+    summary = {"searched": searched, "consistent": carried[0][4], "dr_explains": _dr_explains(p, carried),
+               "candidates": _candidates(p, carried, probs), "fallback": fallback, "best_p": round(probs[0], 4),
+               "ambiguous": [] if fallback else ambiguous}
+    return notes, summary
+
+
+def _repeats(session):
+    """A repeat of a contact (``dup_of``) takes the image of the contact it repeats."""
+    by_index = None
+    for c in session.contacts:
+        d = getattr(c, "dup_of", None)
+        if c.image is None and d is not None:
+            if by_index is None:
+                by_index = dict((x.index, x) for x in session.contacts)
+            if d in by_index and by_index[d].image is not None:
+                c.image = by_index[d].image
 
 
 def _rms(h):
@@ -942,10 +1031,7 @@ def apply(session, result):
         if c.image is None and rc["image"] is not None:
             c.image = rc["image"]
             notes.append("contact %d identified as %s (confidence %.2f)" % (c.index, rc["image"], rc["confidence"]))
-    for c in session.contacts:
-        d = getattr(c, "dup_of", None)
-        if c.image is None and d is not None and d in by_index and by_index[d].image is not None:
-            c.image = by_index[d].image
+    _repeats(session)
     return notes
 
 
