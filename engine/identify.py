@@ -131,7 +131,7 @@ CANDIDATE_P = 0.01             # a position that fits is a candidate from this p
 SAME_NM = 30.0                 # seeds of one assignment closer than this are one hypothesis
 TANGENT_TOL_DEG = 0.15         # circles missing each other by less than this give a seed (9 nmi)
 BLUNDER_P = 0.02               # prior probability that a contact is a blunder
-DR_TAIL_P = 0.5                # prior probability that the DR is off by up to DR_TAIL_NM ...
+DR_TAIL_P = 0.6                # prior probability that the DR is off by up to DR_TAIL_NM ...
 DR_TAIL_NM = 600.0
 DR_GLOBE_P = 0.01              # ... or anywhere on the globe
 L_REG_NM = 300.0               # extent of a family of positions along lines that do not cross
@@ -724,7 +724,7 @@ def _fits(cost, n_in, n):
 def _hypotheses(p, count, nrows, entries, use_dr):
     """Refine the entries (first on the search rows, then on all rows of the tables); returns
     [(logz, lat, lon, assign over the rows, cost, nnn, nne, nee, n_in, chi2)] best first,
-    distinct (by assignment, or by position within ``SAME_NM``)."""
+    distinct: of hypotheses within 0.5 nmi, or of one assignment within ``SAME_NM``, the best."""
     out = []
     for assign, lat, lon in entries:
         a = bytearray(assign)
@@ -732,21 +732,22 @@ def _hypotheses(p, count, nrows, entries, use_dr):
         full = bytearray(nrows)
         _screen(p, nrows, lat, lon, full, 1e300)
         h = _refine(p, nrows, full, lat, lon)
-        full = bytes(full)
         lat, lon = h[0], h[1]
-        dup = False
-        for o in out:
-            d2 = ((o[1] - lat) ** 2 + ((o[2] - lon + math.pi) % (2 * math.pi) - math.pi) ** 2
-                  * math.cos(lat) ** 2) / (NM_RAD * NM_RAD)
-            if d2 < 0.25 or (o[3] == full and d2 < SAME_NM * SAME_NM):
-                dup = True
-                break
-        if dup:
-            continue
         logz = -0.5 * h[2] + _log_prior_mass(p, lat, lon, h[3], h[4], h[5], use_dr)
         out.append((logz, lat, lon, bytes(full), h[2], h[3], h[4], h[5], h[6], h[7]))
     out.sort(key=lambda h: -h[0])
-    return out
+    kept = []
+    for h in out:
+        if not any(_same(o, h) for o in kept):
+            kept.append(h)
+    return kept
+
+
+def _same(a, b):
+    """Two hypotheses are one: within 0.5 nmi, or one assignment within ``SAME_NM``."""
+    d2 = ((a[1] - b[1]) ** 2 + ((a[2] - b[2] + math.pi) % (2 * math.pi) - math.pi) ** 2
+          * math.cos(b[1]) ** 2) / (NM_RAD * NM_RAD)
+    return d2 < 0.25 or (a[3] == b[3] and d2 < SAME_NM * SAME_NM)
 
 
 def _read_rest(p, lat, lon, lab, wts, rest):
@@ -810,11 +811,13 @@ def _run(p, radius_nm, use_dr, stage_local):
             return hyps, searched            # the caller limited the search
         searched = "globe"
     more = _hypotheses(p, count, nrows, _search(p, count, radius_nm, False, use_dr), use_dr)
-    for h in more:
-        if not any(abs(o[1] - h[1]) + abs(o[2] - h[2]) < 0.5 * NM_RAD for o in hyps):
-            hyps.append(h)
+    hyps.extend(more)
     hyps.sort(key=lambda h: -h[0])
-    return hyps, searched
+    kept = []
+    for h in hyps:
+        if not any(_same(o, h) for o in kept):
+            kept.append(h)
+    return kept, searched
 
 
 def _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr):
@@ -837,12 +840,15 @@ def _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr):
         logz = h[0] - 0.5 * extra
         n_in = h[8] + sum(1 for i in rest if wts[i] >= 0.5)
         carried.append((logz, h, lab, wts, _fits(h[4] + extra, n_in, n)))
+    # the hypotheses not carried keep their weight in the total (on the refinement contacts alone:
+    # never less than with every contact), so that they count against every label
+    left = [h[0] for h in hyps[len(carried):]]
     hyps = rest = None
     p.ho = p.gha = p.sdec = p.cdec = p.gx = p.gy = p.gz = p.dn = p.de = None     # the tables go
     carried.sort(key=lambda c: -c[0])
     top = carried[0][0]
     weights = [math.exp(c[0] - top) for c in carried]
-    total = sum(weights)
+    total = sum(weights) + sum(math.exp(x - top) for x in left if x - top > -50.0)
     return p, carried, [w / total for w in weights], searched
 
 
