@@ -148,11 +148,16 @@ class IdentifyError(ValueError):
 
 
 def chi2_quantile(dof, p=0.999):
-    """Quantile of the chi-square distribution with ``dof`` degrees of freedom (Wilson and
-    Hilferty 1931, "The distribution of chi-square", PNAS 17: (1 - 2/9v + z sqrt(2/9v))^3 v;
-    within 1 % for v >= 3).  p is 0.95, 0.99 or 0.999."""
+    """Quantile of the chi-square distribution with ``dof`` degrees of freedom: exact for one
+    (z^2) and two (-2 ln(1 - p)), else Wilson and Hilferty 1931, "The distribution of
+    chi-square", PNAS 17: (1 - 2/9v + z sqrt(2/9v))^3 v, within 1 % for v >= 3.  p is 0.95, 0.99
+    or 0.999."""
     z = {0.95: 1.6449, 0.99: 2.3263, 0.999: 3.0902}[p]
-    v = float(max(1, dof))
+    if dof <= 1:
+        return z * z
+    if dof == 2:
+        return -2.0 * math.log(1.0 - p)
+    v = float(dof)
     a = 2.0 / (9.0 * v)
     return v * (1.0 - a + z * math.sqrt(a)) ** 3
 
