@@ -127,6 +127,7 @@ REFINE_CONTACTS = 24           # contacts of the refinement and the ranking (the
 MAX_ANCHORS = 8                # anchor pairs of the pairwise intersections
 KEEP = 12                      # assignments kept per table (two tables)
 MAX_HYPOTHESES = 6             # hypotheses carried to every contact
+CACHE_PLACES = 2 * REFINE_CONTACTS
 CANDIDATE_P = 0.01             # a position that fits is a candidate from this probability
 SAME_NM = 30.0                 # seeds of one assignment closer than this are one hypothesis
 TANGENT_TOL_DEG = 0.15         # circles missing each other by less than this give a seed (9 nmi)
@@ -163,7 +164,8 @@ def chi2_quantile(dof, p=0.999):
 
 
 class _CachedAlmanac:
-    """Memoises ``position(body, t_us, dut1_us)`` for the instants of the session: the numbers
+    """Memoises ``position(body, t_us, dut1_us)`` for ``CACHE_PLACES`` instants (the refinement
+    contacts', asked at every seed and step; the others are read a few times): the numbers
     of a place unboxed in a small array('d') (a Position object took about 400 bytes of a
     board's heap) and a Position made again on each call; another number type than float (an
     emulation of single precision) is kept as the almanac's object."""
@@ -178,7 +180,9 @@ class _CachedAlmanac:
         v = self.cache.get(key)
         if v is None:
             p = self.alm.position(body, t_us, dut1_us)
-            if type(p.gha_deg) is not float:
+            if len(self.cache) >= CACHE_PLACES:
+                pass                            # the search's instants are in; the others are read once or twice
+            elif type(p.gha_deg) is not float:
                 self.cache[key] = p
             else:
                 self.cache[key] = _array('d', (p.gha_deg, p.dec_deg, p.sd_arcmin, p.hp_arcmin,
@@ -193,9 +197,8 @@ class _CachedAlmanac:
 
 
 class _Problem:
-    """The contacts to identify and the tables of the refinement contacts.  Per contact:
-    ``sig`` (arcmin) and ``lab`` (image index or -1) as array columns; images sorted by
-    deviation.  Tables (rows = the refinement contacts, the search contacts first): ``rows``
+    """The contacts to identify and the tables of the refinement contacts.  Per contact: ``lab``
+    (image index or -1) as an array column; images sorted by deviation.  Tables (rows = the refinement contacts, the search contacts first): ``rows``
     (contact numbers), geographical position ``gha``, ``sdec``, ``cdec`` (radians, sin, cos),
     unit vector ``gx, gy, gz``, run to the reference instant ``dn, de`` (nmi), and ``ho``
     (a list of rows, each an array of Ho in radians per image)."""
@@ -227,15 +230,8 @@ def _setup(session, alm, dr_sigma_nm):
     delay = session.instrument_extra.get("reaction_delay_s")
     ok = isinstance(delay, (int, float)) and not isinstance(delay, bool) and -5.0 < delay < 5.0
     p.delay_us = int(round(delay * 1e6)) if ok else 0
-    sig_img = dict((iid, s if s is not None else DEFAULT_IMAGE_SIGMA_ARCMIN) for iid, _d, s in images)
-    worst = max(sig_img.values())
-    p.sig = _array('d')
-    for c in p.contacts:
-        lat, lon = p.tr.position_at(c.t_us)
-        rate = sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us - p.delay_us, lat, lon, p.obs)[1]
-        s_img = sig_img.get(c.image, worst) if c.image else worst
-        p.sig.append(math.sqrt(s_img ** 2 + EXTRA_SIGMA_ARCMIN ** 2 +
-                               (rate * 60.0 * math.sqrt(DEFAULT_TIME_SIGMA_S ** 2 + c.sigma_s ** 2)) ** 2))
+    p.sig_img = dict((iid, s if s is not None else DEFAULT_IMAGE_SIGMA_ARCMIN) for iid, _d, s in images)
+    p.sig_worst = max(p.sig_img.values())
     gaps = sorted([(p.devs[k + 1] - p.devs[k]) * 60.0 for k in range(p.m - 1)])
     spacing = gaps[len(gaps) // 2] if gaps else 600.0
     p.beta0 = BLUNDER_P / (1.0 - BLUNDER_P) * math.sqrt(2.0 * math.pi) / max(10.0, spacing)
@@ -294,6 +290,13 @@ def _choose(p):
     return rows, len(search)
 
 
+def _sigma(p, c, rate_deg_s):
+    """sigma (arcmin) of a contact whose altitude changes at ``rate_deg_s`` (module docstring)."""
+    s_img = p.sig_img.get(c.image, p.sig_worst) if c.image else p.sig_worst
+    return math.sqrt(s_img ** 2 + EXTRA_SIGMA_ARCMIN ** 2 +
+                     (rate_deg_s * 60.0 * math.sqrt(DEFAULT_TIME_SIGMA_S ** 2 + c.sigma_s ** 2)) ** 2)
+
+
 def _tables(p, rows):
     p.rows = rows
     m = p.m
@@ -319,7 +322,12 @@ def _tables(p, rows):
         for a in range(m):
             row.append(observed_altitude_deg(p.alm, c.body, c.limb, p.devs[a], c.t_us - p.delay_us, p.obs) * DEG)
         p.ho.append(row)
-    p.rsig = _array('d', [p.sig[i] for i in rows])
+    p.rsig = _array('d')                # sigma with the rate at the DR (the search's positions are unknown)
+    for i in rows:
+        c = p.contacts[i]
+        lat, lon = p.tr.position_at(c.t_us)
+        p.rsig.append(_sigma(p, c, sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us - p.delay_us, lat, lon,
+                                                        p.obs)[1]))
     p.rlab = _array('h', [p.lab[i] for i in rows])
     p.rcap = _array('d', [-2.0 * math.log(p.beta0 * s) for s in p.rsig])    # x^2 where a blunder is likelier
 
@@ -755,31 +763,37 @@ def _same(a, b):
     return d2 < 0.25 or (a[3] == b[3] and d2 < SAME_NM * SAME_NM)
 
 
-def _read_rest(p, lat, lon, lab, wts, rest):
-    """Read the contacts ``rest`` (not in the tables) at a hypothesis (reference position, radians)
-    with the forward model: image index into ``lab``, probability of not being a blunder into
-    ``wts``; returns their cost."""
+def _read_rest(p, lat, lon, lab, wts, stop=1e300):
+    """Read the contacts not in the tables at a hypothesis (reference position, radians) with
+    the forward model: image index into ``lab``, probability of not being a blunder into
+    ``wts``; returns (their cost, how many are good), or None once the cost passes ``stop``."""
     cost = 0.0
-    for i in rest:
+    good = 0
+    for i in range(len(p.contacts)):
+        if p.in_rows[i]:
+            continue
         c = p.contacts[i]
         lat_i, lon_i = dr_position(lat / DEG, lon / DEG, p.tr.course_deg, p.tr.speed_kn, c.t_us - p.t_ref)
         j = p.lab[i]
+        hs, rate = sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us - p.delay_us, lat_i, lon_i, p.obs)
         if j < 0:
-            hs = sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us - p.delay_us, lat_i, lon_i, p.obs)[0]
             j = 0
             for k in range(1, p.m):
                 if abs(p.devs[k] - hs) < abs(p.devs[j] - hs):
                     j = k
         r = contact_residual_arcmin(p.alm, c.body, c.limb, p.devs[j], c.t_us - p.delay_us, lat_i, lon_i,
                                      p.obs)[0]
-        s = p.sig[i]
+        s = _sigma(p, c, rate)
         x2 = (r / s) ** 2
         beta = p.beta0 * s
         cost += _rho(x2, beta)
+        if cost > stop:
+            return None
         e = math.exp(-0.5 * x2) if x2 < 200.0 else 0.0
         lab[i] = j
         wts[i] = e / (e + beta)
-    return cost
+        good += wts[i] >= 0.5
+    return cost, good
 
 
 def _read_rows(p, h, lab, wts):
@@ -832,23 +846,35 @@ def _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr):
     p = _setup(session, alm, dr_sigma_nm)
     hyps, searched = _run(p, radius_nm, use_dr, LOCAL_FIRST)
     n = len(p.contacts)
-    rest = [i for i in range(n) if i not in p.rows]
-    best_logz = hyps[0][0]
+    p.in_rows = bytearray(n)
+    for i in p.rows:
+        p.in_rows[i] = 1
     carried = []
+    best_total = None
+    least = 0.0                                 # the smallest cost of the other contacts among those read
     for h in hyps[:MAX_HYPOTHESES]:
-        if h[0] < best_logz - 16.0:
+        if best_total is not None and h[0] < best_total - 16.0:
             break
         lab = bytearray(n) if p.m < 256 else [0] * n
         wts = _array('d', [0.0] * n)
         _read_rows(p, h, lab, wts)
-        extra = _read_rest(p, h[1], h[2], lab, wts, rest) if rest else 0.0
+        if best_total is None:
+            read = _read_rest(p, h[1], h[2], lab, wts)
+        else:                                   # hopeless once 16 below the best: stop reading
+            read = _read_rest(p, h[1], h[2], lab, wts, 2.0 * (h[0] - best_total + 16.0))
+        if read is None:
+            continue
+        extra, good = read
         logz = h[0] - 0.5 * extra
-        n_in = h[8] + sum(1 for i in rest if wts[i] >= 0.5)
-        carried.append((logz, h, lab, wts, _fits(h[4] + extra, n_in, n)))
-    # the hypotheses not carried keep their weight in the total (on the refinement contacts alone:
-    # never less than with every contact), so that they count against every label
-    left = [h[0] for h in hyps[len(carried):]]
-    hyps = rest = None
+        if best_total is None:
+            best_total = logz
+            least = extra
+        least = min(least, extra)
+        carried.append((logz, h, lab, wts, _fits(h[4] + extra, h[8] + good, n)))
+    # the hypotheses not carried keep their weight in the total, as if they explained the other
+    # contacts as well as the best of those carried does, so that they count against every label
+    left = [h[0] - 0.5 * least for h in hyps if not any(c[1] is h for c in carried)]
+    hyps = None
     p.ho = p.gha = p.sdec = p.cdec = p.gx = p.gy = p.gz = p.dn = p.de = None     # the tables go
     carried.sort(key=lambda c: -c[0])
     top = carried[0][0]
@@ -979,8 +1005,8 @@ def identify_for_fix(session, alm, confidence=DEFAULT_CONFIDENCE):
         if fits:
             pending.append((c, best, conf))
     if done:
-        notes.insert(0, "contact%s identified (confidence %.2f or more): %s"
-                     % ("s" if len(done) > 1 else "", low, ", ".join(done)))
+        notes.insert(0, "contact%s identified (%sconfidence %.4f): %s"
+                     % ("s" if len(done) > 1 else "", "lowest " if len(done) > 1 else "", low, ", ".join(done)))
         done = None
     fallback = labelled < 3 and carried[0][4] and bool(pending)
     if fallback:
@@ -1020,13 +1046,13 @@ def _misfits(p, h):
         if p.lab[i] < 0:
             continue
         lat_i, lon_i = dr_position(lat, lon, p.tr.course_deg, p.tr.speed_kn, c.t_us - p.t_ref)
-        hs = sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us - p.delay_us, lat_i, lon_i, p.obs)[0]
+        hs, rate = sextant_altitude_deg(p.alm, c.body, c.limb, c.t_us - p.delay_us, lat_i, lon_i, p.obs)
         j = 0
         for k in range(1, p.m):
             if abs(p.devs[k] - hs) < abs(p.devs[j] - hs):
                 j = k
         own = abs(hs - p.devs[p.lab[i]]) * 60.0
-        if j != p.lab[i] and own > 4.0 * p.sig[i] and own > 2.0 * abs(hs - p.devs[j]) * 60.0:
+        if j != p.lab[i] and own > 4.0 * _sigma(p, c, rate) and own > 2.0 * abs(hs - p.devs[j]) * 60.0:
             out.append({"index": c.index, "label": p.ids[p.lab[i]], "fits": p.ids[j],
                         "label_residual_arcmin": round(own, 2)})
     return out
@@ -1064,9 +1090,12 @@ def cold_start(session, alm, top=5):
     p = _setup(session, alm, 1e4)
     hyps, _ = _run(p, None, False, False)
     n = len(p.contacts)
-    rest = [i for i in range(n) if i not in p.rows]
+    p.in_rows = bytearray(n)
+    for i in p.rows:
+        p.in_rows[i] = 1
     out = []
     top_logz = hyps[0][0]
+    total = sum(math.exp(h[0] - top_logz) for h in hyps if h[0] - top_logz > -50.0)
     for h in hyps:
         lat, lon = h[1] / DEG, h[2] / DEG
         if any(distance_nm(lat, lon, o["lat_deg"], o["lon_deg"]) < 60.0 for o in out):
@@ -1074,8 +1103,7 @@ def cold_start(session, alm, top=5):
         lab = bytearray(n) if p.m < 256 else [0] * n
         wts = _array('d', [0.0] * n)
         _read_rows(p, h, lab, wts)
-        if rest:
-            _read_rest(p, h[1], h[2], lab, wts, rest)
+        _read_rest(p, h[1], h[2], lab, wts)
         ss = 0.0
         for i, c in enumerate(p.contacts):
             lat_i, lon_i = dr_position(lat, lon, p.tr.course_deg, p.tr.speed_kn, c.t_us - p.t_ref)
@@ -1084,6 +1112,7 @@ def cold_start(session, alm, top=5):
             ss += r * r
         out.append({"utc": format_utc(p.t_ref, 0), "lat_deg": round(lat, 4), "lon_deg": round(lon, 4),
                     "images": [p.ids[j] for j in lab], "cost": round(2.0 * (top_logz - h[0]), 3),
+                    "probability": round(math.exp(h[0] - top_logz) / total, 4),
                     "rms_arcmin": round(math.sqrt(ss / n), 3), "fits": _fits(h[4], h[8], len(p.rows))})
         if len(out) >= top:
             break

@@ -131,7 +131,7 @@ def test_reduce_session_identifies_before_the_fix():
     text = session_text(scn, pick, 20.0, -15.0, labelled=(0,))
     res = engine.reduce_session(text, ALM)
     assert res["images"] == [c["image"] for c in pick]
-    assert any(w.startswith("contacts identified (confidence") and " as %s" % pick[1]["image"] in w
+    assert any(w.startswith("contacts identified (lowest confidence 0.99") and " as %s" % pick[1]["image"] in w
                for w in res["warnings"])
     # the fix lands on the true track position at the fix epoch (reference contacts, no noise)
     t = parse_utc(res["utc"])
