@@ -13,9 +13,9 @@ Contact k read as image a puts the ship on a circle of equal altitude: centre
 the body's geographical position at t_k, radius 90 deg - Ho(k, a), Ho from the
 forward model's corrections (``model.observed_altitude_deg``: dip,
 refraction, semi-diameter, parallax; they depend on the altitude, not on the
-position).  The ship's run from t_k to the reference instant is carried as a
-shift of the circle (to first order in the run, d^2 / (2 R tan z) below 0.2
-nmi for an 80-nmi run).
+position).  The ship's run between two contacts is carried as a change of
+the later circle's radius by the run's component toward its body (first
+order: d^2 / (2 R tan z), below 0.2 nmi for an 80-nmi run).
 
 * Seeds.  (a) Pairwise intersections: for anchor pairs of contacts and every
   pair of images (a labelled contact keeps its label), the two circles meet in
@@ -23,47 +23,60 @@ nmi for an 80-nmi run).
   point of closest approach, for near-parallel lines of position).  Whatever
   the DR, the position of every assignment that fits a well-crossing anchor
   pair is among these points, so the search is complete: a 6-contact session
-  with the DR 600 nmi off is found like a 30-contact one.  (b) The DR, and the
-  DR carried onto each circle of each search contact (for sessions whose lines
-  of position are nearly parallel, where intersections are ill-conditioned,
-  and for one or two contacts).
-* Screening.  At each seed every search contact is read as the nearest image
-  (or its label) with the table model below; score = sum min(x^2, cap^2)
+  with the DR 600 nmi off is found like a 30-contact one.  The anchors are the
+  pairs whose geographical positions are farthest apart (short of opposite),
+  disjoint where they can be, so that a blunder spoils one anchor only.
+  (b) The DR, and the DR carried onto each circle of each search contact (for
+  sessions whose lines of position are nearly parallel, where intersections
+  are ill-conditioned, and for one or two contacts).
+* Screening.  At each seed every other search contact is read as the nearest
+  image (or its label) with the table model below; score = sum min(x^2, cap)
   (x = residual / sigma; the cap is where a contact is more likely a blunder
   than a good contact, see below), stopped early once it exceeds the worst
   entry kept.  Two tables of at most ``KEEP`` assignments each are kept: by
-  the score alone and by the score plus the DR's prior (so the best fits
-  anywhere and the best fits near the DR are both refined).  Seeds with the
-  same assignment within ``SAME_NM`` keep the best.
+  the score alone and by the score plus the DR's Gaussian prior (so the best
+  fits anywhere and the best fits near the DR are both refined).  Seeds with
+  the same assignment within ``SEED_SAME_NM`` keep the best (an assignment
+  that fits all along lines of position that hardly cross takes one place).
 * Refinement.  Each kept assignment is refined by iteratively reweighted
   Gauss-Newton in position (Zn from the table model; weights = the
   probability that the contact is not a blunder), then read again as the
-  nearest images and refined again (at most three rounds), first on the
-  search contacts, then on the refinement set.
-* Two stages.  First only seeds within ``4 sigma_DR + 60`` nmi of the DR (or
-  ``radius_nm``).  When the best hypothesis found there fits the contacts
-  (the chi-square test below) and lies within the DR's stated uncertainty
-  (Mahalanobis distance^2 <= chi2_2(0.999) = 13.8, DR and fix covariance), the DR
-  explains the session and the search stops: any far hypothesis then weighs
-  less than 1e-4 under the prior below.  Otherwise the whole globe is
-  searched ("cold start", reported in the result's ``searched``).
+  nearest images and refined again, first on the search contacts (two
+  rounds) and scored on the refinement contacts; the best ``REFINE_FAR``
+  by that score and the best ``REFINE_NEAR`` with the DR's Gaussian prior
+  are refined on all the refinement contacts (three rounds).  A family that
+  only the search contacts cannot tell apart (near a pole the Sun keeps its
+  altitude: every contact one image) is dropped there.  Of hypotheses at one
+  position (0.5 nmi), or of one assignment within ``SAME_NM``, the best is
+  kept.
+* The whole globe is always searched: the DR only weighs the hypotheses (below),
+  so a DR hundreds of miles off, or with a slipped sign, does not hide the
+  ship ("cold start" inside every identification).  ``radius_nm`` limits the
+  search to that distance from the DR (``searched``: "dr").
 
 Bounds (time and memory do not grow with the session beyond one pass)
 ---------------------------------------------------------------------
 * the search works on ``SEARCH_CONTACTS`` (8) contacts well spread over time and
-  bodies, with at most ``MAX_ANCHORS`` (8) anchor pairs: at most
-  8 x 2 x m^2 intersection seeds + 8 m projection seeds (m images), each
-  screened on at most 8 contacts;
+  bodies, with at most ``MAX_ANCHORS`` (4) anchor pairs (6 when there are 4
+  contacts or fewer): at most 4 x 2 m^2 intersection seeds + 8 m + 1 DR seeds
+  (m images), each screened on at most 6 contacts;
 * refinement and ranking use ``REFINE_CONTACTS`` (24) contacts (the search
-  contacts and others spread among the rest), at most 2 x ``KEEP`` (24)
-  refined assignments, at most ``MAX_HYPOTHESES`` (6) carried to the end;
-* every other contact is read once per carried hypothesis at its position
-  (forward model): O(n) time, n bytes and n floats per carried hypothesis.
-* memory: the tables (geographical position, run, Ho of every image) of the
-  refinement contacts as ``array('d')`` columns, 24 x (m + 7) numbers; the
-  per-contact data (sigma, label) as ``array`` columns; the candidate seeds are
-  streamed, never stored.  ``coop.tick()`` is called at each anchor image pair
-  and each refinement.
+  contacts and others spread among the rest): at most 2 x ``KEEP`` (32) seeds
+  refined on the search contacts, 16 of them on all 24, at most
+  ``MAX_HYPOTHESES`` (6) carried to the end;
+* every other contact is read at the most probable hypothesis with the forward
+  model (twice: its image and its residual), and at the others until they fall
+  e^-8 below it: O(n) time; memory n bytes and n floats per carried hypothesis
+  and an array of labels (the almanac cache holds ``CACHE_PLACES`` instants);
+* the tables (geographical position, run, Ho of every image) of the refinement
+  contacts are ``array('d')`` columns (Ho one small array per contact: a
+  fragmented heap finds those), 24 x (m + 9) numbers; the seeds are streamed,
+  never stored.  ``coop.tick()`` is called at each anchor image pair, each
+  refinement step and each evaluation of the forward model.
+
+Measured (``python -m bench identify``): the search and refinement cost about
+1 000 model-evaluation ticks whatever the size, a 2 400-contact session about
+2.3 ticks and 120 bytes (CPython) per contact more (``tests/test_identify_bounds.py``).
 
 Table model (for the search and refinement only; the fix uses THE forward
 model): Hc of the body's centre by the spherical formula from the almanac's
@@ -72,9 +85,12 @@ flattening term (below 0.2' for the Moon).
 
 Probabilities (what "confidence" means)
 ---------------------------------------
-sigma_k: the image's sigma (default 2', more than the fix's 1': the table
-model, nominal deviations, a dip anomaly) and the timing scatter (0.25 s and
-the stamp's ``sigma_s``) times the contact's rate, combined.
+sigma_k: the image's sigma (default 2', more than the fix's 1': nominal
+deviations, a dip anomaly), ``EXTRA_SIGMA_ARCMIN`` (0.7': the contact's own
+scatter, the table model, refraction) and the timing scatter (0.25 s and the
+stamp's ``sigma_s``) times the contact's rate (at the DR for the search
+contacts, at the hypothesis for the others), combined.  Contact times are
+taken less the instrument's ``reaction_delay_s``, as the fix does.
 
 A contact is a blunder (a stray press, a wrong body or limb) with prior
 probability ``BLUNDER_P``; a blunder's residual is uniform over an image
@@ -83,8 +99,12 @@ rho(x) = -2 ln((exp(-x^2/2) + beta) / (1 + beta)), beta = P/(1-P) sqrt(2 pi) sig
 x^2 for a good contact, a cap for a blunder.  The DR's prior on the position
 is a mixture: with probability 1 - ``DR_TAIL_P`` - ``DR_GLOBE_P`` the DR is right
 within sigma_DR (Gaussian, per axis); with ``DR_TAIL_P`` it is off by anything
-up to ``DR_TAIL_NM`` (uniform disc: a log left unkept for a day or two); with
-``DR_GLOBE_P`` it is anything on the globe (a sign or a date slipped).  The
+up to ``DR_TAIL_NM`` (as likely 50 as 500 nmi: uniform in distance, with a soft
+edge; a log left unkept for a day or two, a current unknown); with
+``DR_GLOBE_P`` it is anything on the globe (a sign or a date slipped).
+``DR_TAIL_P`` = 0.6 was chosen on 2 400 calibration sessions of the trials below
+(seeds 11-18): 0.4 let one session through with a wrong label at confidence
+0.99, 0.5 to 0.7 none, and the share of labels given is the same (82 %).  The
 weight of a hypothesis is its marginal likelihood, the Laplace approximation
 of the integral of exp(-cost/2) times the prior over the position (its
 normal matrix N, regularised over ``L_REG_NM`` for lines that do not cross):
@@ -100,10 +120,11 @@ on sessions made outside the engine (DE421 + ERFA) with DR errors of 0-600
 nmi, and by ``tests/test_identify_calibration.py`` (300 seeded sessions: no
 wrong label at confidence >= 0.99).
 
-A hypothesis "fits" when its good contacts pass the chi-square test at 0.999
-(Wilson and Hilferty's approximation of the quantile, 1931) with n - 2 degrees
-of freedom, and at most (n - 3) // 3 contacts read as blunders.  Every distinct
-position that fits is reported (``candidates``): more than one is a doubt.
+A hypothesis "fits" when it has at least three good contacts and its cost
+(chi-square of the good contacts plus the cap of each blunder) is within the
+chi-square quantile at 0.999 with n - 2 degrees of freedom (``chi2_quantile``).
+Every distinct position that fits with a probability of at least
+``CANDIDATE_P`` is reported (``candidates``): more than one is a doubt.
 
 sigma_DR: ``dr_sigma_nm`` at the top level of the session (an extra key) or 30
 nmi; 1 nmi when the track is known.
@@ -124,20 +145,23 @@ EXTRA_SIGMA_ARCMIN = 0.7       # what the table model and the a-priori sigmas le
 DEFAULT_CONFIDENCE = 0.99
 SEARCH_CONTACTS = 8            # contacts screened at every seed
 REFINE_CONTACTS = 24           # contacts of the refinement and the ranking (the search contacts among them)
-MAX_ANCHORS = 8                # anchor pairs of the pairwise intersections
-KEEP = 12                      # assignments kept per table (two tables)
+MAX_ANCHORS = 4                # anchor pairs of the pairwise intersections
+KEEP = 16                      # assignments kept per table of the screening (two tables)
+REFINE_FAR = 10                # of those, refined on every refinement contact: the best overall ...
+REFINE_NEAR = 6                # ... and the best near the DR
 MAX_HYPOTHESES = 6             # hypotheses carried to every contact
 CACHE_PLACES = 2 * REFINE_CONTACTS
 CANDIDATE_P = 0.01             # a position that fits is a candidate from this probability
-SAME_NM = 30.0                 # seeds of one assignment closer than this are one hypothesis
+SAME_NM = 30.0                 # hypotheses of one assignment closer than this are one
+SEED_SAME_NM = 300.0           # seeds of one assignment closer than this take one place in a table
 TANGENT_TOL_DEG = 0.15         # circles missing each other by less than this give a seed (9 nmi)
+TANGENT_TOL = TANGENT_TOL_DEG * math.pi / 180.0
 BLUNDER_P = 0.02               # prior probability that a contact is a blunder
 DR_TAIL_P = 0.6                # prior probability that the DR is off by up to DR_TAIL_NM ...
 DR_TAIL_NM = 600.0
 DR_GLOBE_P = 0.01              # ... or anywhere on the globe
 L_REG_NM = 300.0               # extent of a family of positions along lines that do not cross
-LOCAL_FIRST = False
-MAHALANOBIS2_DR = 13.8         # chi2_2(0.999): the DR explains a position within this
+MAHALANOBIS2_DR = 13.8         # chi2_2(0.999): the DR explains a position within this (dr_explains)
 EARTH_AREA_NM2 = 4.0 * math.pi * 3437.747 ** 2
 NM_RAD = 1.0 / 3437.747        # radians per nautical mile (arcminute)
 RAD_ARCMIN = 3437.747
@@ -351,16 +375,17 @@ def _rho(x2, beta):
 
 # ----------------------------------------------------------------------------- table model
 
-def _screen(p, count, lat, lon, buf, bound):
-    """Score of a seed (reference position ``lat``, ``lon`` in radians) on the first ``count``
-    rows: sum min(x^2, cap); the images read are written into ``buf``.  Stops above ``bound``."""
+def _screen(p, rows, lat, lon, buf, bound):
+    """Score of a seed (reference position ``lat``, ``lon`` in radians) on the rows ``rows`` (a
+    count of the first rows, or a sequence of row numbers): sum min(x^2, cap); the images read
+    are written into ``buf``.  Stops above ``bound``."""
     sin, cos, asin = math.sin, math.cos, math.asin
     ho, m = p.ho, p.m
     cl = cos(lat)
     if cl < 0.01:
         cl = 0.01
     score = 0.0
-    for r in range(count):
+    for r in (range(rows) if isinstance(rows, int) else rows):
         la = lat + p.dn[r] * NM_RAD
         sh = sin(la) * p.sdec[r] + cos(la) * p.cdec[r] * cos(p.gha[r] + lon + p.de[r] * NM_RAD / cl)
         if sh > 1.0:
@@ -368,11 +393,19 @@ def _screen(p, count, lat, lon, buf, bound):
         elif sh < -1.0:
             sh = -1.0
         hc = asin(sh)
+        row = ho[r]
         j = p.rlab[r]
-        if j < 0:
-            j = _nearest(ho[r], m, hc)
+        if j < 0:                               # the nearest image (bisection, Ho ascending)
+            lo, hi = 0, m - 1
+            while hi - lo > 1:
+                mid = (lo + hi) >> 1
+                if row[mid] < hc:
+                    lo = mid
+                else:
+                    hi = mid
+            j = lo if hc - row[lo] <= row[hi] - hc else hi
         buf[r] = j
-        x = (ho[r][j] - hc) * RAD_ARCMIN / p.rsig[r]
+        x = (row[j] - hc) * RAD_ARCMIN / p.rsig[r]
         x = x * x
         cap = p.rcap[r]
         score += x if x < cap else cap
@@ -386,7 +419,7 @@ def _refine(p, count, assign, lat, lon, rounds=3, iterations=8):
     (radians), the images ``assign`` (bytearray, updated: read again as the nearest images
     after each convergence, at most ``rounds`` times).  Returns (lat, lon, cost, nnn, nne, nee,
     n_in, chi2_in)."""
-    sin, cos, asin, atan2, exp = math.sin, math.cos, math.asin, math.atan2, math.exp
+    sin, cos, asin, exp = math.sin, math.cos, math.asin, math.exp
     ho = p.ho
     reg = 1.0 / (L_REG_NM * L_REG_NM)
     for rnd in range(rounds):
@@ -405,13 +438,12 @@ def _refine(p, count, assign, lat, lon, rounds=3, iterations=8):
                     sh = 1.0
                 elif sh < -1.0:
                     sh = -1.0
-                zn = atan2(-cd * sin(lha), cla * sd - sl * cd * ct)
+                u1, u2 = _unit(cla * sd - sl * cd * ct, -cd * sin(lha))
                 res = (ho[r][assign[r]] - asin(sh)) * RAD_ARCMIN
                 s = p.rsig[r]
                 x2 = (res / s) ** 2
                 e = exp(-0.5 * x2) if x2 < 200.0 else 0.0
                 w = e / (e + p.beta0 * s) / (s * s)
-                u1, u2 = cos(zn), sin(zn)
                 a11 += w * u1 * u1
                 a12 += w * u1 * u2
                 a22 += w * u2 * u2
@@ -447,7 +479,7 @@ def _refine(p, count, assign, lat, lon, rounds=3, iterations=8):
 
 def _score(p, count, assign, lat, lon):
     """(lat, lon, cost, nnn, nne, nee, n_in, chi2_in) of the images ``assign`` at a position."""
-    sin, cos, asin, atan2, exp = math.sin, math.cos, math.asin, math.atan2, math.exp
+    sin, cos, asin, exp = math.sin, math.cos, math.asin, math.exp
     ho = p.ho
     cost = a11 = a12 = a22 = chi2 = 0.0
     n_in = 0
@@ -457,7 +489,7 @@ def _score(p, count, assign, lat, lon):
         lha = p.gha[r] + lon + p.de[r] * NM_RAD / cl
         sl, cla, sd, cd, ct = sin(la), cos(la), p.sdec[r], p.cdec[r], cos(lha)
         sh = max(-1.0, min(1.0, sl * sd + cla * cd * ct))
-        zn = atan2(-cd * sin(lha), cla * sd - sl * cd * ct)
+        u1, u2 = _unit(cla * sd - sl * cd * ct, -cd * sin(lha))
         s = p.rsig[r]
         x2 = ((ho[r][assign[r]] - asin(sh)) * RAD_ARCMIN / s) ** 2
         beta = p.beta0 * s
@@ -468,7 +500,6 @@ def _score(p, count, assign, lat, lon):
             n_in += 1
             chi2 += x2
         w /= s * s
-        u1, u2 = cos(zn), sin(zn)
         a11 += w * u1 * u1
         a12 += w * u1 * u2
         a22 += w * u2 * u2
@@ -479,8 +510,8 @@ def _score(p, count, assign, lat, lon):
 
 def _anchors(p, count):
     """Anchor pairs of rows among the first ``count``: all pairs up to 4 rows, else the best
-    crossing ones (geographical positions far apart but not opposite), each row in at most
-    two pairs, at most ``MAX_ANCHORS``."""
+    crossing ones (geographical positions far apart but not opposite), disjoint where they can
+    be (a blunder spoils one anchor only), at most ``MAX_ANCHORS``."""
     pairs = []
     for i in range(count):
         for j in range(i + 1, count):
@@ -488,29 +519,36 @@ def _anchors(p, count):
             pairs.append((-(1.0 - c * c), i, j))
     pairs.sort()
     if count <= 4:
-        return [(i, j) for _q, i, j in pairs]
+        return [(i, j) for _q, i, j in pairs][:max(MAX_ANCHORS, 6)]
     used = [0] * count
     out = []
-    for _q, i, j in pairs:
-        if used[i] < 2 and used[j] < 2:
-            out.append((i, j))
-            used[i] += 1
-            used[j] += 1
-            if len(out) >= MAX_ANCHORS:
-                break
+    for most in (1, 2):
+        for _q, i, j in pairs:
+            if len(out) < MAX_ANCHORS and used[i] < most and used[j] < most and (i, j) not in out:
+                out.append((i, j))
+                used[i] += 1
+                used[j] += 1
     return out
 
 
-def _meet(p, i, j, zi, zj, c, out):
+def _unit(x, y):
+    """(x, y) / |(x, y)|: cos and sin of an azimuth from its two components."""
+    n = math.sqrt(x * x + y * y)
+    if n < 1e-300:
+        return 1.0, 0.0
+    return x / n, y / n
+
+
+def _meet(p, i, j, zi, zj, c, out, theta=None):
     """Points (lat, lon radians) where the circles of rows i and j (radii zi, zj radians) meet,
     appended to ``out``: none, one (closest approach of circles that miss by less than
-    ``TANGENT_TOL_DEG``) or two."""
+    ``TANGENT_TOL_DEG``) or two.  ``c``: cosine of the angle ``theta`` between their centres."""
     s2 = 1.0 - c * c
     if s2 < 1e-10:
         return
-    theta = math.acos(max(-1.0, min(1.0, c)))
-    gap = max(abs(zi - zj) - theta, theta - zi - zj, 0.0)
-    if gap > TANGENT_TOL_DEG * DEG:
+    if theta is None:
+        theta = math.acos(max(-1.0, min(1.0, c)))
+    if zi - zj > theta + TANGENT_TOL or zj - zi > theta + TANGENT_TOL or theta - zi - zj > TANGENT_TOL:
         return
     a, b = math.cos(zi), math.cos(zj)
     al = (a - b * c) / s2
@@ -527,45 +565,51 @@ def _meet(p, i, j, zi, zj, c, out):
     cx = p.gy[i] * p.gz[j] - p.gz[i] * p.gy[j]
     cy = p.gz[i] * p.gx[j] - p.gx[i] * p.gz[j]
     cz = p.gx[i] * p.gy[j] - p.gy[i] * p.gx[j]
-    for sg in (g, -g):
-        px, py, pz = x + sg * cx, y + sg * cy, z + sg * cz
-        out.append((math.asin(max(-1.0, min(1.0, pz))), math.atan2(py, px)))
+    px, py, pz = x + g * cx, y + g * cy, z + g * cz
+    out.append((math.asin(max(-1.0, min(1.0, pz))), math.atan2(py, px)))
+    px, py, pz = x - g * cx, y - g * cy, z - g * cz
+    out.append((math.asin(max(-1.0, min(1.0, pz))), math.atan2(py, px)))
 
 
 def _toward(p, r, lat, lon):
     """(cos Zn, sin Zn) of the geographical position of row r seen from (lat, lon) radians."""
     lha = p.gha[r] + lon
     sl, cl = math.sin(lat), math.cos(lat)
-    zn = math.atan2(-p.cdec[r] * math.sin(lha), cl * p.sdec[r] - sl * p.cdec[r] * math.cos(lha))
-    return math.cos(zn), math.sin(zn)
+    return _unit(cl * p.sdec[r] - sl * p.cdec[r] * math.cos(lha), -p.cdec[r] * math.sin(lha))
 
 
 def _seeds_pairs(p, count, visit):
-    """Call ``visit(lat, lon)`` (radians, reference instant) at every pairwise seed."""
+    """Call ``visit(lat, lon, rows)`` (radians, reference instant; ``rows``: the rows other than
+    the anchor's, the ones to screen) at every pairwise seed; ``p.buf`` holds the anchor's images."""
     m = p.m
-    moving = p.tr.speed_kn != 0.0
     pts = []
+    two = []
     for i, j in _anchors(p, count):
         c = p.gx[i] * p.gx[j] + p.gy[i] * p.gy[j] + p.gz[i] * p.gz[j]
+        theta = math.acos(max(-1.0, min(1.0, c)))
+        others = bytearray([r for r in range(count) if r != i and r != j])
+        # the run from t_i to t_j: the position at t_i is the unknown, circle j is carried back by it
+        run_n, run_e = p.dn[j] - p.dn[i], p.de[j] - p.de[i]
+        moving = run_n * run_n + run_e * run_e > 0.25
         ai = [p.rlab[i]] if p.rlab[i] >= 0 else range(m)
         aj = [p.rlab[j]] if p.rlab[j] >= 0 else range(m)
         for a in ai:
             zi = 0.5 * math.pi - p.ho[i][a]
+            p.buf[i] = a
             for b in aj:
                 coop.tick()
                 zj = 0.5 * math.pi - p.ho[j][b]
+                if zi - zj > theta + TANGENT_TOL or zj - zi > theta + TANGENT_TOL or theta - zi - zj > TANGENT_TOL:
+                    continue                    # the circles are apart (or one inside the other)
+                p.buf[j] = b
                 del pts[:]
-                _meet(p, i, j, zi, zj, c, pts)
+                _meet(p, i, j, zi, zj, c, pts, theta)
                 for lat, lon in pts:
                     if moving:
-                        # the run from t_i and t_j to the reference instant: each circle's radius
-                        # grows by the run's component toward its body (first order), then meet again
-                        ui, vi = _toward(p, i, lat, lon)
-                        uj, vj = _toward(p, j, lat, lon)
-                        zi2 = zi + (p.dn[i] * ui + p.de[i] * vi) * NM_RAD
-                        zj2 = zj + (p.dn[j] * uj + p.de[j] * vj) * NM_RAD
-                        two = []
-                        _meet(p, i, j, zi2, zj2, c, two)
+                        # circle j's radius grows by the run's component toward its body (first order)
+                        u, v = _toward(p, j, lat, lon)
+                        del two[:]
+                        _meet(p, i, j, zi, zj + (run_n * u + run_e * v) * NM_RAD, c, two, theta)
                         best = None
                         for q in two:
                             d = (q[0] - lat) ** 2 + ((q[1] - lon + math.pi) % (2 * math.pi) - math.pi) ** 2
@@ -574,14 +618,16 @@ def _seeds_pairs(p, count, visit):
                         if best is None:
                             continue
                         lat, lon = best[1]
-                    visit(lat, lon)
+                    # from t_i to the reference instant
+                    lat2 = lat - p.dn[i] * NM_RAD
+                    visit(lat2, lon - p.de[i] * NM_RAD / max(0.01, math.cos(lat2)), others)
 
 
 def _seeds_dr(p, count, visit, radius_nm):
     """The DR, and the DR carried onto each circle of the first ``count`` rows (within
     ``radius_nm``)."""
     lat0, lon0 = p.dr_lat * DEG, p.dr_lon * DEG
-    visit(lat0, lon0)
+    visit(lat0, lon0, count)
     m = p.m
     cl = max(0.01, math.cos(lat0))
     for r in range(count):
@@ -595,12 +641,13 @@ def _seeds_dr(p, count, visit, radius_nm):
         for a in imgs:
             d = (p.ho[r][a] - hc) * RAD_ARCMIN           # toward the body, nmi
             if abs(d) <= radius_nm:
-                visit(lat0 + d * u * NM_RAD, lon0 + d * v * NM_RAD / cl)
+                visit(lat0 + d * u * NM_RAD, lon0 + d * v * NM_RAD / cl, count)
 
 
 class _Table:
     """At most ``cap`` (assignment, score, lat, lon) entries, the cheapest (pruned in place when
-    twice as many gathered); one entry per assignment within ``SAME_NM``."""
+    twice as many gathered); one entry per assignment within ``SEED_SAME_NM`` (an assignment that
+    fits all along a line of position, lines that hardly cross, takes one place, not dozens)."""
 
     def __init__(self, cap):
         self.cap = cap
@@ -614,7 +661,7 @@ class _Table:
             if self.keys[k] == assign:
                 v = self.vals[k]
                 if (v[1] - lat) ** 2 + ((v[2] - lon + math.pi) % (2 * math.pi) - math.pi) ** 2 * math.cos(lat) ** 2 \
-                        < (SAME_NM * NM_RAD) ** 2:
+                        < (SEED_SAME_NM * NM_RAD) ** 2:
                     if score < v[0]:
                         self.vals[k] = (score, lat, lon)
                     return
@@ -641,13 +688,13 @@ def _search(p, count, radius_nm, local, use_dr=True):
     ``local``: only seeds within ``radius_nm`` of the DR, ranked with the DR's prior too."""
     glob = _Table(KEEP)
     near = _Table(KEEP)
-    buf = bytearray(count)
+    buf = p.buf = bytearray(count)
     lat0, lon0 = p.dr_lat * DEG, p.dr_lon * DEG
     cl0 = max(0.01, math.cos(lat0))
     w0 = 1.0 / (p.dr_sigma * p.dr_sigma)
     r2 = radius_nm * radius_nm
 
-    def visit(lat, lon):
+    def visit(lat, lon, rows):
         dn = (lat - lat0) * RAD_ARCMIN
         de = ((lon - lon0 + math.pi) % (2.0 * math.pi) - math.pi) * RAD_ARCMIN * cl0
         d2 = dn * dn + de * de
@@ -657,7 +704,7 @@ def _search(p, count, radius_nm, local, use_dr=True):
         bound = glob.bound
         if inside:
             bound = max(bound, near.bound - d2 * w0)
-        score = _screen(p, count, lat, lon, buf, bound)
+        score = _screen(p, rows, lat, lon, buf, bound)
         if score < glob.bound:
             glob.add(buf, score, lat, lon)
         if use_dr and inside and score + d2 * w0 < near.bound:
@@ -668,9 +715,11 @@ def _search(p, count, radius_nm, local, use_dr=True):
     glob.prune()
     near.prune()
     out = []
-    for t in (near, glob):
+    for near_dr, t in ((True, near), (False, glob)):
         for k in range(len(t.keys)):
-            out.append((t.keys[k], t.vals[k][1], t.vals[k][2]))
+            a, lat, lon = t.keys[k], t.vals[k][1], t.vals[k][2]
+            if not any(o[0] == a and (o[1] - lat) ** 2 + (o[2] - lon) ** 2 < (0.5 * NM_RAD) ** 2 for o in out):
+                out.append((a, lat, lon, near_dr))
     return out
 
 
@@ -738,13 +787,29 @@ def _hypotheses(p, count, nrows, entries, use_dr):
     """Refine the entries (first on the search rows, then on all rows of the tables); returns
     [(logz, lat, lon, assign over the rows, cost, nnn, nne, nee, n_in, chi2)] best first,
     distinct: of hypotheses within 0.5 nmi, or of one assignment within ``SAME_NM``, the best."""
-    out = []
-    for assign, lat, lon in entries:
+    # shortlist: each entry refined on the search rows and scored on every row; the best
+    # ``REFINE_NEAR`` near the DR (score + its prior) and ``REFINE_FAR`` overall are refined on all
+    lat0, lon0 = p.dr_lat * DEG, p.dr_lon * DEG
+    cl0 = max(0.01, math.cos(lat0))
+    w0 = 1.0 / (p.dr_sigma * p.dr_sigma)
+    short = []
+    for assign, lat, lon, near_dr in entries:
         a = bytearray(assign)
-        lat, lon = _refine(p, count, a, lat, lon)[:2]
+        lat, lon = _refine(p, count, a, lat, lon, 2, 4)[:2]
         full = bytearray(nrows)
-        _screen(p, nrows, lat, lon, full, 1e300)
-        h = _refine(p, nrows, full, lat, lon)
+        score = _screen(p, nrows, lat, lon, full, 1e300)
+        dn = (lat - lat0) * RAD_ARCMIN
+        de = ((lon - lon0 + math.pi) % (2.0 * math.pi) - math.pi) * RAD_ARCMIN * cl0
+        short.append((score, score + (dn * dn + de * de) * w0 if near_dr else 1e300, bytes(full), lat, lon))
+    entries = None
+    pick = sorted(range(len(short)), key=lambda k: short[k][0])[:REFINE_FAR]
+    for k in sorted(range(len(short)), key=lambda k: short[k][1])[:REFINE_NEAR]:
+        if short[k][1] < 1e300 and k not in pick:
+            pick.append(k)
+    out = []
+    for k in pick:
+        full = bytearray(short[k][2])
+        h = _refine(p, nrows, full, short[k][3], short[k][4])
         lat, lon = h[0], h[1]
         logz = -0.5 * h[2] + _log_prior_mass(p, lat, lon, h[3], h[4], h[5], use_dr)
         out.append((logz, lat, lon, bytes(full), h[2], h[3], h[4], h[5], h[6], h[7]))
@@ -809,34 +874,15 @@ def _read_rows(p, h, lab, wts):
         wts[i] = e / (e + p.beta0 * p.rsig[r])
 
 
-def _run(p, radius_nm, use_dr, stage_local):
-    """Search, refine and rank; returns (hypotheses, searched)."""
+def _run(p, radius_nm, use_dr):
+    """Search, refine and rank; returns (hypotheses, searched): the whole globe ("globe"), or
+    within ``radius_nm`` of the DR when given ("dr")."""
     rows, count = _choose(p)
     _tables(p, rows)
-    nrows = len(rows)
-    limited = radius_nm is not None
-    if radius_nm is None:
-        radius_nm = 4.0 * p.dr_sigma + 60.0
-    hyps = []
-    searched = "globe"
-    if use_dr and stage_local:
-        hyps = _hypotheses(p, count, nrows, _search(p, count, radius_nm, True), use_dr)
-        searched = "dr"
-        if hyps:
-            b = hyps[0]
-            if _fits(b[4], b[8], nrows) and _mahalanobis2(p, b[1], b[2], b[5], b[6], b[7]) <= MAHALANOBIS2_DR:
-                return hyps, searched
-        if limited:
-            return hyps, searched            # the caller limited the search
-        searched = "globe"
-    more = _hypotheses(p, count, nrows, _search(p, count, radius_nm, False, use_dr), use_dr)
-    hyps.extend(more)
-    hyps.sort(key=lambda h: -h[0])
-    kept = []
-    for h in hyps:
-        if not any(_same(o, h) for o in kept):
-            kept.append(h)
-    return kept, searched
+    if radius_nm is not None:
+        return _hypotheses(p, count, len(rows), _search(p, count, radius_nm, True, use_dr), use_dr), "dr"
+    radius_nm = 4.0 * p.dr_sigma + 60.0              # the near table's reach
+    return _hypotheses(p, count, len(rows), _search(p, count, radius_nm, False, use_dr), use_dr), "globe"
 
 
 def _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr):
@@ -844,7 +890,7 @@ def _weigh(session, alm, dr_sigma_nm, radius_nm, use_dr):
     model).  Returns (problem, carried [(logz, hypothesis, images, weights, fits)] best first,
     their probabilities, searched); the problem's tables are dropped."""
     p = _setup(session, alm, dr_sigma_nm)
-    hyps, searched = _run(p, radius_nm, use_dr, LOCAL_FIRST)
+    hyps, searched = _run(p, radius_nm, use_dr)
     n = len(p.contacts)
     p.in_rows = bytearray(n)
     for i in p.rows:
@@ -1088,7 +1134,7 @@ def cold_start(session, alm, top=5):
     "cost", "probability", "fits"}``: the position at the last contact (course and speed kept),
     distinct by at least 60 nmi, best first."""
     p = _setup(session, alm, 1e4)
-    hyps, _ = _run(p, None, False, False)
+    hyps, _ = _run(p, None, False)
     n = len(p.contacts)
     p.in_rows = bytearray(n)
     for i in p.rows:

@@ -65,8 +65,9 @@ def test_search_bounded_and_the_rest_read_once():
 
 
 def test_bounds_are_what_the_docstring_says():
-    assert identify.SEARCH_CONTACTS == 8 and identify.REFINE_CONTACTS == 24 and identify.MAX_ANCHORS == 8
-    assert identify.KEEP == 12 and identify.MAX_HYPOTHESES == 6
+    assert identify.SEARCH_CONTACTS == 8 and identify.REFINE_CONTACTS == 24 and identify.MAX_ANCHORS == 4
+    assert identify.KEEP == 16 and identify.REFINE_FAR == 10 and identify.REFINE_NEAR == 6
+    assert identify.MAX_HYPOTHESES == 6
     s = long_session(60)
     r = identify.identify(s, ALM)
     assert len(r["hypotheses"]) <= identify.MAX_HYPOTHESES
