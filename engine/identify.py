@@ -166,6 +166,7 @@ EARTH_AREA_NM2 = 4.0 * math.pi * 3437.747 ** 2
 NM_RAD = 1.0 / 3437.747        # radians per nautical mile (arcminute)
 RAD_ARCMIN = 3437.747
 DEG = math.pi / 180.0
+BIG = 1e30                     # "no bound": finite in single precision too (a board's floats)
 
 
 class IdentifyError(ValueError):
@@ -466,7 +467,7 @@ def _refine(p, count, assign, lat, lon, rounds=3, iterations=8):
             if step < 0.02:
                 break
         buf = bytearray(count)
-        _screen(p, count, lat, lon, buf, 1e300)
+        _screen(p, count, lat, lon, buf, BIG)
         same = True
         for r in range(count):
             if buf[r] != assign[r]:
@@ -534,7 +535,7 @@ def _anchors(p, count):
 def _unit(x, y):
     """(x, y) / |(x, y)|: cos and sin of an azimuth from its two components."""
     n = math.sqrt(x * x + y * y)
-    if n < 1e-300:
+    if n < 1e-30:
         return 1.0, 0.0
     return x / n, y / n
 
@@ -653,7 +654,7 @@ class _Table:
         self.cap = cap
         self.keys = []
         self.vals = []
-        self.bound = 1e300
+        self.bound = BIG
 
     def add(self, assign, score, lat, lon):
         assign = bytes(assign)
@@ -797,14 +798,14 @@ def _hypotheses(p, count, nrows, entries, use_dr):
         a = bytearray(assign)
         lat, lon = _refine(p, count, a, lat, lon, 2, 4)[:2]
         full = bytearray(nrows)
-        score = _screen(p, nrows, lat, lon, full, 1e300)
+        score = _screen(p, nrows, lat, lon, full, BIG)
         dn = (lat - lat0) * RAD_ARCMIN
         de = ((lon - lon0 + math.pi) % (2.0 * math.pi) - math.pi) * RAD_ARCMIN * cl0
-        short.append((score, score + (dn * dn + de * de) * w0 if near_dr else 1e300, bytes(full), lat, lon))
+        short.append((score, score + (dn * dn + de * de) * w0 if near_dr else BIG, bytes(full), lat, lon))
     entries = None
     pick = sorted(range(len(short)), key=lambda k: short[k][0])[:REFINE_FAR]
     for k in sorted(range(len(short)), key=lambda k: short[k][1])[:REFINE_NEAR]:
-        if short[k][1] < 1e300 and k not in pick:
+        if short[k][1] < BIG and k not in pick:
             pick.append(k)
     out = []
     for k in pick:
@@ -828,7 +829,7 @@ def _same(a, b):
     return d2 < 0.25 or (a[3] == b[3] and d2 < SAME_NM * SAME_NM)
 
 
-def _read_rest(p, lat, lon, lab, wts, stop=1e300):
+def _read_rest(p, lat, lon, lab, wts, stop=BIG):
     """Read the contacts not in the tables at a hypothesis (reference position, radians) with
     the forward model: image index into ``lab``, probability of not being a blunder into
     ``wts``; returns (their cost, how many are good), or None once the cost passes ``stop``."""

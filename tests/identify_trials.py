@@ -36,9 +36,11 @@ def true_position(scn, t_us):
     return Track(parse_utc(tr["utc"]), tr["lat_deg"], tr["lon_deg"], tr["course_deg"], tr["speed_kn"]).position_at(t_us)
 
 
-def make(doc, rnd, n=None, dr_error_nm=None, scenario=None, span_h=None, labelled=0):
+def make(doc, rnd, n=None, dr_error_nm=None, scenario=None, span_h=None, labelled=0, strict_span=False):
     """One trial: (session dict, truth {"images", "lat_deg", "lon_deg", "utc", "scenario",
-    "dr_error_nm"})."""
+    "dr_error_nm"}).  The contacts are drawn from a window of ``span_h`` hours (random 1-8 h), or
+    from the whole day when the window has fewer than ``n`` (with ``strict_span``: fewer contacts,
+    at least 4, from the window)."""
     scn = doc["scenarios"][scenario] if scenario is not None else rnd.choice(doc["scenarios"])
     n = n if n is not None else rnd.choice(SIZES)
     dr_error_nm = dr_error_nm if dr_error_nm is not None else rnd.uniform(0.0, 600.0)
@@ -46,7 +48,10 @@ def make(doc, rnd, n=None, dr_error_nm=None, scenario=None, span_h=None, labelle
     span_h = span_h if span_h is not None else rnd.uniform(1.0, 8.0)
     start = parse_utc(rnd.choice(pool)["utc"]) - int(rnd.uniform(0.0, span_h) * 3.6e9)
     window = [c for c in pool if start <= parse_utc(c["utc"]) <= start + int(span_h * 3.6e9)]
-    if len(window) < n:
+    while strict_span and len(window) < 4:
+        start = parse_utc(rnd.choice(pool)["utc"]) - int(rnd.uniform(0.0, span_h) * 3.6e9)
+        window = [c for c in pool if start <= parse_utc(c["utc"]) <= start + int(span_h * 3.6e9)]
+    if len(window) < n and not strict_span:
         window = pool
     picks = sorted(rnd.sample(window, min(n, len(window))), key=lambda c: c["utc"])
     images = doc["instruments"][scn["instrument"]]["images"]
