@@ -207,8 +207,8 @@ def cost(alm):
             "print('MP', ticks_diff(_t1, _t0), k1 - k0, ticks_diff(_t2, _t1), coop.ticks - k1)\n"
             "s = parse_session(ob.session_text(lambda: iter_records(lg), 1), ob.alm)\n_t3 = ticks_ms()\n"
             "r = engine.reduce_session(s, ob.alm)\nprint('MPR', ticks_diff(ticks_ms(), _t3))\n")
-    best = None
-    for _ in range(5):                      # each figure the least of five runs (a shared machine)
+    runs = []
+    for _ in range(5):                      # five runs: the median of each run's ratio to the loop (a shared machine)
         # a 1 MB heap: a collection scans the whole heap, and a 16 MB one doubles some times
         ok, out = mpu.run_unix(setup + call + LOOP + "print('ARENA-OK')\n", heap_bytes=1 << 20)
         if not ok:
@@ -219,23 +219,30 @@ def cost(alm):
             parts = line.split()
             if parts and parts[0] in ("MP", "MPR", "LOOP-MS"):
                 vals[parts[0]] = [int(x) for x in parts[1:]]
-        if best is None:
-            best = vals
-        else:
-            for k in best:
-                best[k] = [min(a, b) for a, b in zip(best[k], vals[k])]
-    id_ms, id_ticks, fix_ms, fix_ticks = best["MP"]
-    red_ms = best["MPR"][0]
-    rate = 400000 / (best["LOOP-MS"][0] / 1000.0)
-    print("   MicroPython unix port (64-bit), on-board session of 30 contacts: identification %d ms (%d ticks),"
-          " fix %d ms (%d ticks), reduce_session %d ms" % (id_ms, id_ticks, fix_ms, fix_ticks, red_ms))
-    print("   board estimate: the unix port runs the float loop at %.0f k/s; a board at %.0f-%.0f per MHz [from memory]"
-          % (rate / 1000.0, BOARD_LOOP_PER_S_PER_MHZ[0], BOARD_LOOP_PER_S_PER_MHZ[1]))
+        runs.append(vals)
+
+    def median(xs):
+        xs = sorted(xs)
+        return xs[len(xs) // 2]
+    id_ms = median([v["MP"][0] for v in runs])
+    fix_ms = median([v["MP"][2] for v in runs])
+    red_ms = median([v["MPR"][0] for v in runs])
+    id_ticks, fix_ticks = runs[0]["MP"][1], runs[0]["MP"][3]
+    loop_ms = median([v["LOOP-MS"][0] for v in runs])
+    # in loop-iterations: each run's time over that run's loop rate, so that the machine's load cancels
+    id_loops = median([v["MP"][0] / float(v["LOOP-MS"][0]) * 400000 for v in runs])
+    red_loops = median([v["MPR"][0] / float(v["LOOP-MS"][0]) * 400000 for v in runs])
+    print("   MicroPython unix port (64-bit), on-board session of 30 contacts (median of 5 runs): identification"
+          " %d ms (%d ticks), fix %d ms (%d ticks), reduce_session %d ms" % (id_ms, id_ticks, fix_ms, fix_ticks,
+                                                                             red_ms))
+    print("   in float-loop iterations of the same run: identification %.0f k, reduce_session %.0f k (the loop: %.0f k/s"
+          " here)" % (id_loops / 1000.0, red_loops / 1000.0, 400.0 / (loop_ms / 1000.0)))
+    print("   board estimate: those iterations at %.0f-%.0f per s per MHz [from memory]"
+          % BOARD_LOOP_PER_S_PER_MHZ)
     for mhz in (125, 240):
-        lo, hi = [rate / (mhz * r) for r in BOARD_LOOP_PER_S_PER_MHZ]
-        print("      %3d MHz: identification %.1f-%.1f s, whole reduction %.1f-%.1f s (x%.0f-%.0f the unix port; "
-              "aim <= 5 s at 125 MHz)" % (mhz, id_ms * hi / 1000.0, id_ms * lo / 1000.0, red_ms * hi / 1000.0,
-                                          red_ms * lo / 1000.0, hi, lo))
+        lo, hi = [mhz * r for r in BOARD_LOOP_PER_S_PER_MHZ]
+        print("      %3d MHz: identification %.1f-%.1f s, whole reduction %.1f-%.1f s (aim: <= 5 s at 125 MHz)"
+              % (mhz, id_loops / hi, id_loops / lo, red_loops / hi, red_loops / lo))
     kb = mpu.min_arena(S.setup_code(doc, tempfile.mkdtemp()), S.CALL, lo=32768, hi=131072, step=2048) / 1024.0
     print("   heap: the on-board reduction of 30 unlabelled contacts needs %.0f KB here (4 layouts; about %.0f KB on a"
           " 32-bit board; budget %d KB here)" % (kb, kb / 2.0, 64))

@@ -65,9 +65,10 @@ Bounds (time and memory do not grow with the session beyond one pass)
   refined on the search contacts, 16 of them on all 24, at most
   ``MAX_HYPOTHESES`` (6) carried to the end;
 * every other contact is read at the most probable hypothesis with the forward
-  model (twice: its image and its residual), and at the others until they fall
-  e^-8 below it: O(n) time; memory n bytes and n floats per carried hypothesis
-  and an array of labels (the almanac cache holds ``CACHE_PLACES`` instants);
+  model (once: its sextant altitude there gives the image and the residual),
+  and at the others until they fall e^-8 below it: O(n) time; memory n bytes
+  and n floats per carried hypothesis and an array of labels (the almanac
+  cache holds ``CACHE_PLACES`` instants);
 * the tables (geographical position, run, Ho of every image) of the refinement
   contacts are ``array('d')`` columns (Ho one small array per contact: a
   fragmented heap finds those), 24 x (m + 9) numbers; the seeds are streamed,
@@ -75,8 +76,8 @@ Bounds (time and memory do not grow with the session beyond one pass)
   refinement step and each evaluation of the forward model.
 
 Measured (``python -m bench identify``): the search and refinement cost about
-1 000 model-evaluation ticks whatever the size, a 2 400-contact session about
-2.3 ticks and 120 bytes (CPython) per contact more (``tests/test_identify_bounds.py``).
+1 000 ticks (``engine.coop.ticks``) whatever the size, and each further contact
+about 1.3 ticks and 120 bytes (CPython) more (``tests/test_identify_bounds.py``).
 
 Table model (for the search and refinement only; the fix uses THE forward
 model): Hc of the body's centre by the spherical formula from the almanac's
@@ -847,8 +848,7 @@ def _read_rest(p, lat, lon, lab, wts, stop=BIG):
             for k in range(1, p.m):
                 if abs(p.devs[k] - hs) < abs(p.devs[j] - hs):
                     j = k
-        r = contact_residual_arcmin(p.alm, c.body, c.limb, p.devs[j], c.t_us - p.delay_us, lat_i, lon_i,
-                                     p.obs)[0]
+        r = (p.devs[j] - hs) * 60.0           # in sextant altitude: within a tenth of Ho - Hc, one evaluation
         s = _sigma(p, c, rate)
         x2 = (r / s) ** 2
         beta = p.beta0 * s
