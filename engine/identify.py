@@ -1021,19 +1021,20 @@ def identify(session, alm, dr_sigma_nm=None, radius_nm=None, confidence=DEFAULT_
 
 def identify_for_fix(session, alm, confidence=DEFAULT_CONFIDENCE):
     """What ``engine.reduce_session`` does before the fix, lean on a board's heap (no per-contact
-    report): write the confident images into the session's unlabelled contacts (and repeats of
-    them); when fewer than three usable contacts then carry an image and the most probable
-    assignment fits, write its images for the unlabelled contacts that fit it (``fallback``).
-    Returns (notes, summary): a note of the images written, one per contact left out; the summary
-    has ``searched``, ``consistent``, ``dr_explains``, ``candidates``, ``fallback``, ``best_p``
-    (the most probable assignment's probability) and ``ambiguous`` (indices of the contacts whose
-    image could not be told)."""
+    report, a few note lines whatever the number of contacts): write the confident images into the
+    session's unlabelled contacts (and repeats of them); when fewer than three usable contacts then
+    carry an image and the most probable assignment fits, write its images for the unlabelled
+    contacts that fit it (``fallback``).  Returns (notes, summary): at most three notes (the
+    images identified; the contacts left out or read as the most probable assignment, with their
+    alternatives); the summary has ``searched``, ``consistent``, ``dr_explains``, ``candidates``,
+    ``fallback``, ``best_p`` (the most probable assignment's probability) and ``ambiguous``
+    (indices of the contacts whose image could not be told)."""
     p, carried, probs, searched = _weigh(session, alm, None, None, True)
-    notes = []
     ambiguous = []
     pending = []
     labelled = 0
     done = []                       # "4 as i05" parts of one note (one string, not one per contact)
+    doubtful = []                   # "7: i05 or i06 (0.62)" / "9: fits no image" parts of another
     low = 1.0
     for i, c in enumerate(p.contacts):
         if p.lab[i] >= 0:
@@ -1046,21 +1047,29 @@ def identify_for_fix(session, alm, confidence=DEFAULT_CONFIDENCE):
             done.append("%d as %s" % (c.index, c.image))
             low = min(low, conf)
             continue
-        notes.append(_note_ambiguous(p, c, best, conf, fits, options))
-        if fits or len(options) > 1:
+        if not fits and len(options) <= 1:
+            doubtful.append("%d: fits no image" % c.index)
+        else:
+            doubtful.append("%d: %s (%.2f)" % (c.index, " or ".join(
+                [p.ids[best]] + [p.ids[o] for o in options if o != best]), conf))
             ambiguous.append(c.index)
         if fits:
-            pending.append((c, best, conf))
+            pending.append((c, best))
+    notes = []
     if done:
-        notes.insert(0, "contact%s identified (%sconfidence %.4f): %s"
+        notes.append("contact%s identified (%sconfidence %.4f): %s"
                      % ("s" if len(done) > 1 else "", "lowest " if len(done) > 1 else "", low, ", ".join(done)))
-        done = None
+    done = None
     fallback = labelled < 3 and carried[0][4] and bool(pending)
+    if doubtful:
+        notes.append("image%s not told with confidence 0.99, contact: %s; %s"
+                     % ("s" if len(doubtful) > 1 else "", ", ".join(doubtful),
+                        "read as the most probable assignment (p %.2f)" % probs[0] if fallback
+                        else "left unidentified"))
+    doubtful = None
     if fallback:
-        for c, best, conf in pending:
+        for c, best in pending:
             c.image = p.ids[best]
-            notes.append("contact %d read as %s, the most probable assignment (confidence %.2f)"
-                         % (c.index, c.image, conf))
     _repeats(session)
     summary = {"searched": searched, "consistent": carried[0][4], "dr_explains": _dr_explains(p, carried),
                "candidates": _candidates(p, carried, probs), "fallback": fallback, "best_p": round(probs[0], 4),
