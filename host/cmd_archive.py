@@ -269,7 +269,8 @@ def fix_session(conn, session_id, at_utc=None):
     for c, img in zip(doc["contacts"], result.get("images") or []):
         if c["image"] is None and img is not None and not c.get("void"):
             labels[c["seq"]] = img
-    if labels:
+    if labels and not (result.get("identification") or {}).get("fallback"):
+        # (a fix resting on the most probable assignment, not on confident images, stores none of them)
         archive.set_image_labels(conn, doc["archive"]["device"], labels, doc["archive"]["log_id"])
     return archive.store_fix(conn, session_id, result), result
 
@@ -277,7 +278,9 @@ def fix_session(conn, session_id, at_utc=None):
 def print_fix(result, out=None, indent=""):
     out = out or sys.stdout
     e = result.get("ellipse_95") or {}
-    lines = ["fix at %s  %s  %s" % (result["utc"], fmt_lat(result["lat_deg"], 2), fmt_lon(result["lon_deg"], 2))]
+    from host.cmd_fix import format_doubts
+    lines = format_doubts(result)           # the doubts above the fix, as `limbclock fix` prints them
+    lines += ["fix at %s  %s  %s" % (result["utc"], fmt_lat(result["lat_deg"], 2), fmt_lon(result["lon_deg"], 2))]
     if e:
         lines.append("95%% ellipse %.2f x %.2f nmi, major axis %03.0f T" % (e["major_nm"], e["minor_nm"],
                                                                          e["major_axis_deg"]))

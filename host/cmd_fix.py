@@ -1,7 +1,10 @@
 """``limbclock fix SESSION [--at UTC] [--json]``: the fix from a session's timed contacts.
 
 The computation is ``engine.reduce_session`` (one implementation); this module
-only reads the file and prints the result.
+only reads the file and prints the result: the doubts (``"doubts"``) above the
+fix, the cautions at the end.  ``--json`` prints the dict and exits 0 whatever
+its doubts; when no consistent fix exists (``engine.doubts.NoConsistentFix``)
+the command prints one line and no position, and exits 2.
 """
 import json
 
@@ -37,11 +40,24 @@ def compute(text, at=None, offset="auto", relabel=True):
     return engine.reduce_session(text, at_us=at_us, deviation_offset=mode, relabel=relabel)
 
 
+def format_doubts(r):
+    """The doubts of a fix dict, as lines to print above the fix (none when it has none)."""
+    doubts = r.get("doubts") or []
+    if not doubts:
+        return []
+    out = ["DOUBTS about this fix (%d): read them before you use it" % len(doubts)]
+    for d in doubts:
+        out.append("  DOUBT [%s]: %s" % (d["code"], d["message"]))
+    out.append("")
+    return out
+
+
 def format_fix(r):
-    """Human text of a fix dict (lines)."""
+    """Human text of a fix dict (lines): its doubts first, the cautions last."""
     from engine.angles import fmt_lat, fmt_lon
     e = r["ellipse_95"]
-    out = ["Fix at %s:  %s  %s" % (r["utc"], fmt_lat(r["lat_deg"]), fmt_lon(r["lon_deg"])),
+    out = format_doubts(r)
+    out += ["Fix at %s:  %s  %s" % (r["utc"], fmt_lat(r["lat_deg"]), fmt_lon(r["lon_deg"])),
            "  95%% ellipse: semi-axes %.1f x %.1f nmi, major axis %03.0f deg true"
            % (e["major_nm"], e["minor_nm"], e["major_axis_deg"]),
            "  DR then:     %s  %s   (fix is %.1f nmi from DR)"

@@ -8,10 +8,11 @@ from host.errors import UserError
 
 def register(sub):
     p = sub.add_parser("identify", help="assign images to contacts timed without one",
-                       description="Find which image made each contact whose image is null: the assignments "
-                                   "one position explains best, ranked, with the DR as a prior.  Ambiguous "
-                                   "contacts are reported, not guessed.  --cold-start searches the globe when "
-                                   "there is no usable DR.")
+                       description="Find which image made each contact whose image is null: the whole globe "
+                                   "is searched for the positions that explain the contacts, ranked with the "
+                                   "DR as a prior that may be wrong.  An image is given only at confidence "
+                                   "0.99 or more; the others are reported with their alternatives, not "
+                                   "guessed.  --cold-start ignores the DR.")
     p.add_argument("session", help="limbclock-session/1 file")
     p.add_argument("--dr-sigma", type=float, help="DR uncertainty, nmi (default: session key dr_sigma_nm or 30)")
     p.add_argument("--cold-start", action="store_true", help="no usable DR: search the whole globe")
@@ -34,11 +35,12 @@ def run(args):
         if args.json:
             print(json.dumps({"format": "limbclock-identify/1", "cold_start": True, "candidates": cands}, indent=1))
             return 0
-        print("Cold start: positions (at the last contact) that explain every contact, best first")
+        print("Cold start: positions (at the last contact) that explain the contacts best, without the DR")
         for k, c in enumerate(cands):
-            print("  %d. %s %s  rms %.2f'  images %s" % (k + 1, fmt_lat(c["lat_deg"]), fmt_lon(c["lon_deg"]),
-                                                         c["rms_arcmin"], " ".join(c["images"])))
-        print("Candidates with an rms of several arcmin do not fit; more than one that fits: take more sights.")
+            print("  %d. %s %s  %s  p %.2f  rms %.2f'  images %s" % (
+                k + 1, fmt_lat(c["lat_deg"]), fmt_lon(c["lon_deg"]), "fits       " if c["fits"] else "DOES NOT FIT",
+                c["probability"], c["rms_arcmin"], " ".join(c["images"])))
+        print("More than one position that fits: take more sights, or judge by the DR.")
         print()
         print(CAUTION_TEXT)
         return 0
@@ -47,7 +49,20 @@ def run(args):
         print(json.dumps(dict(r, format="limbclock-identify/1", cold_start=False), indent=1))
         return 0
     by_index = dict((c.index, c) for c in s.contacts)
-    print("Image identification (DR sigma %.0f nmi, searched within %.0f nmi)" % (r["dr_sigma_nm"], r["radius_nm"]))
+    print("Image identification (DR sigma %.0f nmi; searched: %s)"
+          % (r["dr_sigma_nm"], "the whole globe" if r["searched"] == "globe" else "near the DR"))
+    if not r["consistent"]:
+        print("NO position explains every contact: check the instrument, the times and the bodies")
+    elif not r["dr_explains"]:
+        print("The DR does NOT explain the contacts: the positions below were found without it")
+    cands = r["candidates"]
+    if cands:
+        print("Position%s (at %s) that fit the contacts:" % ("s" if len(cands) > 1 else "", cands[0]["utc"]))
+        for c in cands:
+            print("  %s %s  probability %.2f, %.0f nmi from the DR" % (fmt_lat(c["lat_deg"]), fmt_lon(c["lon_deg"]),
+                                                                    c["probability"], c["dr_distance_nm"]))
+        if len(cands) > 1:
+            print("More than one position fits: images they disagree on are left unidentified; take more sights.")
     print()
     print("  #    UTC                     body  limb   image  confidence  note")
     for c in r["contacts"]:

@@ -22,7 +22,7 @@ from device import hal
 from device import log as L
 from device.onboard import Onboard, iter_records
 import engine
-from engine import almanac, session, fix, identify, model, plan, instrument, corrections, sphere
+from engine import almanac, session, fix, identify, doubts, model, plan, instrument, corrections, sphere
 st = hal.FileStore(%(root)r)
 st.replace("slot_instrument", %(inst)r)
 st.replace("slot_track", %(track)r)

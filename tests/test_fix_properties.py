@@ -142,7 +142,7 @@ def test_ellipse_grows_with_noisy_contacts():
     # ellipse), so no fix is given
     for c in d["contacts"]:
         c["utc"] = format_utc(parse_utc(c["utc"]) + int(rnd.gauss(0.0, 20.0) * 1e6))
-    with pytest.raises(fix.FixError, match="^inconsistent: 15 of 42 contacts misfit"):
+    with pytest.raises(fix.FixError, match="^no consistent fix: 15 of 42 contacts misfit"):
         engine.reduce_session(json.dumps(d), ALM)
 
 

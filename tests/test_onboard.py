@@ -242,24 +242,18 @@ def test_track_file_round_trip():
 
 @pytest.mark.parametrize("name", ["morning_run", "sun_moon"])
 def test_identify_search_bounded_heap_gives_the_same_hypotheses(monkeypatch, name):
-    # engine.identify prunes its grid-search table to KEEP_HYPOTHESES; the REFINE_TOP it uses must be
-    # those of the unpruned search (the contacts are stripped of their images so all are searched)
+    # engine.identify keeps KEEP seeds per screening table (a board's heap); the hypotheses it ranks
+    # first must be those of tables that keep every seed (the contacts are stripped of their images)
     doc = load(name)
     for c in doc["contacts"]:
         c["image"] = None
-    s = parse_session(json.dumps(doc), ALM)
-    p = identify._setup(s, ALM, None)
-    radius = 4.0 * p.dr_sigma + 60.0
 
-    def top(h):
-        return sorted(h.items(), key=lambda kv: kv[1][0])[:identify.REFINE_TOP]
-    default = top(identify._hypotheses(p, radius))
-    monkeypatch.setattr(identify, "KEEP_HYPOTHESES", identify.REFINE_TOP)    # the tightest it may be
-    pruned = top(identify._hypotheses(p, radius))
-    monkeypatch.setattr(identify, "KEEP_HYPOTHESES", 10 ** 9)
-    full = identify._hypotheses(p, radius)
-    assert len(full) > 2 * identify.REFINE_TOP                      # the pruning did happen above
-    assert pruned == top(full) and default == top(full)
+    def ranked():
+        p = identify._setup(parse_session(json.dumps(doc), ALM), ALM, None)
+        return [(round(h[0], 6), h[3]) for h in identify._run(p, None, True)[0][:3]]
+    default = ranked()
+    monkeypatch.setattr(identify, "KEEP", 10 ** 6)
+    assert ranked() == default
 
 
 def test_status_json_carries_the_next_contact_dict():
