@@ -61,8 +61,10 @@ def dr_sigma_of(session):
     v = session.extra.get("dr_sigma_nm", None)
     if v is None:
         return 1.0 if session.track.known else DEFAULT_DR_SIGMA_NM
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not 0.1 <= v <= 5000.0:
-        raise ValueError("dr_sigma_nm: must be a number of nautical miles within 0.1..5000, got %r" % (v,))
+    from engine.limits import RANGES
+    lo, hi = RANGES["dr_sigma_nm"]              # the session reader's range (docs/formats.md)
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not lo <= v <= hi:
+        raise ValueError("session.dr_sigma_nm: must be a number of nautical miles within %g..%g, got %r" % (lo, hi, v))
     return float(v)
 
 

@@ -144,7 +144,8 @@ deviation_offset_estimated, deviation_offset_sigma_arcmin,
 deviation_offset_effect_nm, sigma0, dof,
 unknowns, consistent, contacts_usable, rejection_limit, rejected_blunders,
 rejected_time_blunders, rejected_duplicates, epoch_contact, dr, iterations,
-warnings, contacts``.
+warnings, contacts``; ``engine.reduce_session`` adds ``doubts`` (``engine/doubts.py``)
+and, when identification ran, ``identification``.
 """
 import math
 from array import array as _array

@@ -220,6 +220,14 @@ def test_a_malformed_dr_sigma_is_refused_by_name():
     d["dr_sigma_nm"] = "thirty"
     with pytest.raises(ValueError) as exc:
         reduce(d)
-    assert str(exc.value).startswith("dr_sigma_nm: ")
+    assert str(exc.value).startswith("session.dr_sigma_nm: ")             # the reader's type check
+    d["dr_sigma_nm"] = -5
+    with pytest.raises(ValueError) as exc:
+        reduce(d)
+    assert str(exc.value) == "session.dr_sigma_nm: -5.0 outside 0.1..3000.0"     # docs/formats.md
+    s = parse_session(json.dumps(d.copy() | {"dr_sigma_nm": 80}))
+    s.extra["dr_sigma_nm"] = 5000.0             # set past the reader: the same range
+    with pytest.raises(ValueError, match=r"^session\.dr_sigma_nm: must be a number of nautical miles within 0.1..3000"):
+        doubts.dr_sigma_of(s)
     s = parse_session(json.dumps(dict(d, dr_sigma_nm=80)))
     assert doubts.dr_sigma_of(s) == 80.0

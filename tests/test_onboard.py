@@ -442,7 +442,8 @@ def test_relabelling_not_kept_gives_back_the_first_fix():
 
 def test_a_press_during_the_onboard_fix_is_stamped_and_logged_exactly():
     # a slow board: every read of the tick counter (once per model evaluation through the coop hook)
-    # costs 4 ms of simulated time, so the reduction takes tens of seconds while the world goes on
+    # costs 10 ms of simulated time, so the reduction takes tens of seconds while the world goes on
+    # (at 4 ms the faster identification of 2026-12-03 finished before the second gesture at 13 s)
     from device import log as L
     doc = load("morning_run")
     doc["contacts"] = doc["contacts"][:10]
@@ -450,7 +451,7 @@ def test_a_press_during_the_onboard_fix_is_stamped_and_logged_exactly():
     vt = VirtualTimer(session=doc, conditions=True)
     t_fix = last + 20000000
     vt.advance_to(t_fix)
-    vt.world.cpu_us = 4000
+    vt.world.cpu_us = 10000
     vt.press_fix(t_fix)                                   # held 9.5 s: the reduction starts at the release
     start = t_fix + 9500000
     press = start + 2345678                               # a contact made while the timer reduces
