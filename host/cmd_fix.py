@@ -24,11 +24,8 @@ def register(sub):
 
 
 def _read(path):
-    if path == "-":
-        import sys
-        return sys.stdin.read()
-    with open(path, "rb") as f:
-        return f.read()
+    from host.inputs import read_file
+    return read_file(path, "session")          # '-' for standard input; refused above the size limit
 
 
 def compute(text, at=None, offset="auto", relabel=True):

@@ -13,7 +13,7 @@ def register(sub):
                                    "DR as a prior that may be wrong.  An image is given only at confidence "
                                    "0.99 or more; the others are reported with their alternatives, not "
                                    "guessed.  --cold-start ignores the DR.")
-    p.add_argument("session", help="limbclock-session/1 file")
+    p.add_argument("session", help="limbclock-session/1 file ('-' for standard input)")
     p.add_argument("--dr-sigma", type=float, help="DR uncertainty, nmi (default: session key dr_sigma_nm or 30)")
     p.add_argument("--cold-start", action="store_true", help="no usable DR: search the whole globe")
     p.add_argument("--json", action="store_true", help="machine-readable output")
@@ -26,10 +26,10 @@ def run(args):
     from engine.timescale import format_utc
     from engine.angles import fmt_lat, fmt_lon
     alm = almanac.load()
-    with open(args.session, "rb") as f:
-        s = parse_session(f.read(), alm)
-    if args.dr_sigma is not None and not 0.1 <= args.dr_sigma <= 3000.0:
-        raise UserError("--dr-sigma: %r not within 0.1..3000 nmi" % args.dr_sigma)
+    from host.inputs import read_file, option
+    s = parse_session(read_file(args.session, "session"), alm)
+    if args.dr_sigma is not None:
+        args.dr_sigma = option(args.dr_sigma, "--dr-sigma", "dr_sigma_nm")
     if args.cold_start:
         cands = identify.cold_start(s, alm)
         if args.json:

@@ -31,7 +31,7 @@ largest errors are shared between contacts):
 * image deviation: sigma of the image (``sigma_arcmin``, default 1.0'), shared by
   every contact of that image;
 * dip anomaly (default 1.0'; dip follows the air-sea temperature difference,
-  REFERENCES 1.2 and Tschudin, Applied Optics 55, 3104, 2016; the size of the
+  Tschudin, Applied Optics 55, 3104, 2016 [title from memory: tests/SOURCES.md]; the size of the
   anomaly is [from memory], matched to the Monte Carlo of bench/bench_fix.py),
   shared by all contacts;
 * refraction anomaly: one scale error kappa (default 0.05) of the whole
@@ -56,7 +56,7 @@ Error ellipse (95 %): covariance N^-1 of the two position unknowns (the
 offset, when estimated, is marginalised), scaled by k^2 = max(chi2_2(0.95),
 s0^2 2F(2, n-u; 0.95)): the a-priori model when the residuals agree with it,
 the a-posteriori unit weight s0 with the F quantile when they are larger
-(REFERENCES section 2; F(2, v) has the closed form
+(Mikhail, "Observations and Least Squares", 1976 [from memory]; F(2, v) has the closed form
 P = 1 - (1 + 2x/v)^(-v/2)).
 
 Blunders: first a robust pass (Huber 1964 M-estimator by iteratively

@@ -205,16 +205,8 @@ def test_a_repeated_contact_through_fix(workdir):
     assert len(r["contacts"]) == 13 and [c["index"] for c in r["contacts"]] == list(range(13))
 
 
-def _fix_honours_dup_of():
-    import inspect
-    from engine import fix
-    return "dup_of" in inspect.getsource(fix)
-
-
-@pytest.mark.skipif(not _fix_honours_dup_of(), reason="FIX SIDE: engine/fix.py does not read Contact.dup_of yet "
-                    "(the fix helper's change); this test then checks that the repeat is used once")
 def test_fix_uses_a_repeated_contact_once(workdir):
-    """FIX-SIDE expectation (engine/fix.py honours Contact.dup_of): the repeat is not used, its
+    """engine/fix.py honours Contact.dup_of: the repeat is not used, its
     reason says 'duplicate of contact 4', and the fix equals the fix without the repeat."""
     doc = _seed()
     doc["contacts"] = doc["contacts"][:12]
