@@ -22,6 +22,7 @@ from device.sim import VirtualTimer
 from engine import timescale
 from host import archive, sync
 from host.timer_client import NoAnswer, TimerClient, TimerError, VersionMismatch
+from waiting import HANG_GUARD_S
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 T0 = timescale.parse_utc("2031-05-14T07:00:00Z")
@@ -64,22 +65,6 @@ def check_same(conn, vt, recs, log_id=None):
     raw = dict(conn.execute("SELECT seq, raw FROM log_records WHERE device_id=? AND log_id=?", (dev, log_id)).fetchall())
     assert [raw[r.seq] for r in recs] == [r.pack() for r in recs]
     assert archive.integrity_ok(conn)
-
-
-def committed(db, device_id):
-    """Highest seq committed for the device, read without taking any lock (-1: nothing yet)."""
-    import sqlite3
-    if not os.path.exists(db):
-        return -1
-    try:
-        conn = sqlite3.connect("file:%s?mode=ro" % db, uri=True, timeout=1.0)
-        try:
-            row = conn.execute("SELECT last_seq FROM logs WHERE device_id=? AND log_id != 0", (device_id,)).fetchone()
-        finally:
-            conn.close()
-    except sqlite3.DatabaseError:          # not created yet (or not migrated yet)
-        return -1
-    return -1 if row is None else row[0]
 
 
 @pytest.mark.parametrize("rate", [0.001, 0.02])
@@ -279,7 +264,7 @@ def damage(path, nbytes=8192, seed=11):
 
 def limbclock(*args, **kw):
     return subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
-                          timeout=120, **kw)
+                          timeout=HANG_GUARD_S, **kw)
 
 
 def test_damaged_archive_is_never_acknowledged(tmp_path):
@@ -469,7 +454,7 @@ def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
     try:
         for spec, held, reclaimed in KILLS:
             env[sync.TEST_KILL_ENV] = spec
-            p = subprocess.run(cmd, cwd=ROOT, env=env, capture_output=True, text=True, timeout=300)   # hang guard
+            p = subprocess.run(cmd, cwd=ROOT, env=env, capture_output=True, text=True, timeout=HANG_GUARD_S)   # hang guard
             assert p.returncode == -signal.SIGKILL, (spec, p.returncode, p.stderr)
             conn = archive.connect(db)
             got = archived(conn, vt.device_id)
@@ -479,7 +464,7 @@ def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
             assert vt.fw.log.confirmed_seq == first - 1 + reclaimed, spec    # only what was acknowledged
             assert device_records(vt) == recs[reclaimed:]                    # the rest still on the timer
         del env[sync.TEST_KILL_ENV]
-        out = subprocess.run(cmd + ["--json"], cwd=ROOT, env=env, capture_output=True, text=True, timeout=300)
+        out = subprocess.run(cmd + ["--json"], cwd=ROOT, env=env, capture_output=True, text=True, timeout=HANG_GUARD_S)
         assert out.returncode == 0, out.stderr
     finally:
         vt.stop()
