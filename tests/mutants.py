@@ -179,6 +179,10 @@ def define():
     add("sync-quick-check-skipped", "host/sync.py",
         "problems = archive.quick_check(probe)", "problems = []",
         ["tests/test_sync.py"], "no SQLite quick_check of the archive before an ACK")
+    add("archive-open-quick-check-skipped", "host/archive.py",
+        "        problems = quick_check(conn)\n        if problems:\n            conn.close()",
+        "        problems = []\n        if problems:\n            conn.close()",
+        ["tests/test_archive.py", "tests/test_sync.py"], "a damaged archive opened for writing without SQLite's quick_check")
 
 
 def tracked_files():
