@@ -5,7 +5,7 @@ VPY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 MP_DIR := tests/mp/node_modules/@micropython/micropython-webassembly-pyscript
 
-.PHONY: demo test bench lint venv mp clean vectors almanac-fit
+.PHONY: demo test bench mutants lint venv mp clean vectors almanac-fit
 
 $(STAMP): pyproject.toml
 	$(PY) -m venv $(VENV)
@@ -31,6 +31,11 @@ test: $(STAMP) $(MP_DIR) lint
 
 bench: $(STAMP) $(MP_DIR)
 	$(VPY) -m bench
+
+# small deliberate bugs in a copy of the tree, each must make a test fail (tests/mutants.py);
+# MUTANTS_ARGS="--jobs 2" or a mutant's name to run some
+mutants: $(STAMP) $(MP_DIR)
+	$(VPY) tests/mutants.py $(MUTANTS_ARGS)
 
 vectors: $(STAMP)
 	$(VPY) -m vectors.generate

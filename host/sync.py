@@ -47,6 +47,40 @@ class SyncError(ValueError):
     """The timer's log and the archive disagree in a way sync must not paper over."""
 
 
+# ---- test hook (inert unless the environment variable is set; DEVELOPERS.md "Test hooks") ----
+# LIMBCLOCK_TEST_KILL_AFTER_RECORDS="N:point": the sync process kills itself (SIGKILL, as a pulled
+# plug or the OOM killer would) once it has read N records from the timer in this run, at ``point``:
+# "handshake" (N is ignored: right after the handshake, before any record is read), "store" (inside
+# the batch's transaction, the records written but not committed), "commit" (right after the COMMIT of
+# that batch, before its ACK: the window the ordering above protects) or "ack" (right after the next
+# ACK the timer accepted).  tests/test_sync.py uses it to kill a real sync at chosen points instead of
+# at random moments.
+TEST_KILL_ENV = "LIMBCLOCK_TEST_KILL_AFTER_RECORDS"
+TEST_KILL_POINTS = ("handshake", "store", "commit", "ack")
+
+
+def _test_kill_spec():
+    import os
+    spec = os.environ.get(TEST_KILL_ENV)
+    if not spec:
+        return None
+    n, _, point = spec.partition(":")
+    if not n.isdigit() or point not in TEST_KILL_POINTS:
+        raise SyncError("%s=%r: expected N:point with point one of %s" % (TEST_KILL_ENV, spec,
+                                                                          ", ".join(TEST_KILL_POINTS)))
+    return int(n), point
+
+
+def _test_kill(spec, point, records):
+    """Kill this process when the test hook ``spec`` asks for it at ``point`` after ``records``."""
+    if spec is not None and spec[1] == point and records >= spec[0]:
+        import os
+        import signal
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os.kill(os.getpid(), signal.SIGKILL)
+
+
 def record_dict(r):
     """A ``device.log.Record`` (or a dict) -> the archive's record dict (with ``raw``, its packed bytes)."""
     if isinstance(r, dict):
@@ -137,7 +171,9 @@ def sync(client, conn, progress=None, batch=None, stream=None, ack_every=ACK_EVE
     if getattr(conn, "readonly", False):
         raise archive.ArchiveReadOnly("archive %s is opened read-only: sync needs to write to it" % conn.path)
     started = archive.now_us()
+    kill = _test_kill_spec()
     info = client.handshake()
+    _test_kill(kill, "handshake", 0)
     device_id = info["device_id"]
     log_id = info["log_id"]
     origin = info["origin_seq"]
@@ -179,8 +215,10 @@ def sync(client, conn, progress=None, batch=None, stream=None, ack_every=ACK_EVE
                 if gap:
                     archive.note_gaps(conn, device_id, log_id, gap)
                 archive.apply_stamps(conn, device_id, log_id)  # late stamps of untimed contacts
+                _test_kill(kill, "store", new + dup + n + d)
             new += n
             dup += d
+            _test_kill(kill, "commit", new + dup)
             missing += gap
             batches += 1
             if recs or gap:
@@ -194,6 +232,7 @@ def sync(client, conn, progress=None, batch=None, stream=None, ack_every=ACK_EVE
             if last_stored is not None and (last_stored - ack_from + 1 >= ack_every or s >= nxt):
                 ans = _ack(client, conn, device_id, log_id, ack_from, last_stored)
                 acks += 1
+                _test_kill(kill, "ack", new + dup)
                 confirmed = ans["confirmed_seq"]
                 ack_from = ans["base_seq"]
                 last_stored = None

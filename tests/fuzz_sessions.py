@@ -227,7 +227,7 @@ def time_text(draw, base):
         days = draw(st.integers(-20 * 366, 20 * 366))
         try:
             return timescale.format_utc(timescale.parse_utc(base) + days * 86400 * 1000000, 3)
-        except ValueError:
+        except timescale.TimeError:
             return base
     if kind == 6:
         return draw(st.text(max_size=30))
@@ -295,7 +295,7 @@ def valid_edit(draw, d):
                          | st.integers(-8 * 86400 * 10 ** 6, 8 * 86400 * 10 ** 6))
             try:
                 c["utc"] = timescale.format_utc(timescale.parse_utc(c["utc"]) + dt_us, 6)
-            except ValueError:
+            except timescale.TimeError:
                 pass
     elif kind == "known" and isinstance(d.get("track"), dict):
         d["track"]["known"] = draw(st.booleans())
@@ -328,7 +328,7 @@ def mutated(draw, doc):
                 try:
                     t = timescale.parse_utc(c["utc"]) + draw(st.integers(-600000, 600000))
                     c["utc"] = timescale.format_utc(t, 6)
-                except ValueError:
+                except timescale.TimeError:
                     pass
             d["contacts"].insert(draw(st.integers(0, len(d["contacts"]))), c)
             continue

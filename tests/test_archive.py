@@ -21,6 +21,7 @@ from hypothesis import strategies as st
 
 from engine import timescale
 from host import archive
+from waiting import HANG_GUARD_S
 
 T0 = timescale.parse_utc("2031-05-14T07:00:00Z")
 
@@ -368,12 +369,12 @@ def run_readonly(kind, target, argv):
         mode = os.stat(target).st_mode
         os.chmod(target, 0o555 if kind == "dir" else 0o444)
         try:
-            return subprocess.run(cmd, cwd=ROOT, capture_output=True, text=True, timeout=120)
+            return subprocess.run(cmd, cwd=ROOT, capture_output=True, text=True, timeout=HANG_GUARD_S)
         finally:
             os.chmod(target, mode)
     script = 'mount --bind "$0" "$0" && mount -o remount,ro,bind "$0" "$0" && shift 0 && exec "$@"'
     return subprocess.run(["unshare", "-r", "-m", "sh", "-c", script, target] + cmd, cwd=ROOT, capture_output=True,
-                          text=True, timeout=120)
+                          text=True, timeout=HANG_GUARD_S)
 
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
@@ -417,7 +418,7 @@ def test_read_only_wal_archive_with_unapplied_transactions(tmp_path):
             "archive.store_records(c, 'T-1', [{'seq': 9, 'kind': 'contact', 'utc_us': %d, 'body': 'moon', "
             "'limb': 'upper', 'session': 3, 'quality': 'locked', 'uncertainty_us': 9}], 0xA1); "
             "c.execute('COMMIT'); os._exit(0)" % (ROOT, path, T0 + 10 ** 9))
-    subprocess.run([sys.executable, "-c", code], check=True, timeout=60)
+    subprocess.run([sys.executable, "-c", code], check=True, timeout=HANG_GUARD_S)
     assert os.path.getsize(path + "-wal") > 0
     for name in ("-shm",):
         if os.path.exists(path + name):
@@ -439,7 +440,7 @@ def test_export_opens_read_only_and_writes_nothing(tmp_path):
     assert snap.readonly and len(archive.refresh_sessions(snap)) == 3      # grouped in the snapshot only
     snap.close()
     p = subprocess.run([sys.executable, "-m", "host", "export", "--db", path, "--json"], cwd=ROOT,
-                       capture_output=True, text=True, timeout=120)
+                       capture_output=True, text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 0 and len(json.loads(p.stdout)["sessions"]) == 3, p.stderr
     assert _bytes(path) == before
     conn = archive.connect(path)
@@ -485,7 +486,7 @@ def test_archive_fix_on_a_read_only_archive(tmp_path):
     assert "read-only" in p.stderr and "not stored" in p.stderr
     ref = subprocess.run([sys.executable, "-m", "host", "fix", os.path.join(ROOT, "vectors", "sessions",
                                                                            "morning_run.json"), "--json"],
-                         cwd=ROOT, capture_output=True, text=True, timeout=120)
+                         cwd=ROOT, capture_output=True, text=True, timeout=HANG_GUARD_S)
     want = json.loads(ref.stdout)
     assert abs(got["lat_deg"] - want["lat_deg"]) < 1e-9 and abs(got["lon_deg"] - want["lon_deg"]) < 1e-9
     assert _bytes(path) == before

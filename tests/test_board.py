@@ -17,6 +17,7 @@ from device import FIRMWARE_VERSION, PROTOCOL_VERSION, screens
 from host import cmd_board, oled
 from host.errors import UserError
 import mpu
+from waiting import HANG_GUARD_S
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 TESTS = os.path.join(ROOT, "tests")
@@ -25,7 +26,7 @@ ENGINE = sorted(n for n in os.listdir(os.path.join(ROOT, "engine")) if n.endswit
 YEARS = sorted(int(n[:4]) for n in os.listdir(os.path.join(ROOT, "engine", "data")) if n.endswith(".lca"))
 
 
-def cli(*args, env=None, timeout=300):
+def cli(*args, env=None, timeout=HANG_GUARD_S):
     e = dict(os.environ)
     e.update(env or {})
     return subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
@@ -141,7 +142,7 @@ def test_mpy_tree_boots_under_micropython(tmp_path):
     assert "error" not in rep and rep["faults"] and rep["faults"][0].startswith("display")
 
 
-def _run_in_tree(tree, code, env=None, timeout=120):
+def _run_in_tree(tree, code, env=None, timeout=HANG_GUARD_S):
     f = tree / "_t.py"
     f.write_text(code)
     e = dict(os.environ, MICROPYPATH=FAKEBOARD + ":lib")
@@ -254,28 +255,35 @@ def test_the_link_owns_the_console_while_the_firmware_runs(tmp_path):
     need_unix_port()
     tree = tmp_path / "t"
     cmd_board.build(cmd_board.load_profile("pico"), str(tree), "mpy")
-    code = ("import sys, time, device.main\n"
+    # the script waits for a line from the test at each point the mask is read (no sleeps: the
+    # test, not a timer, says when it has looked)
+    code = ("import sys, device.main\n"
             "from engine import coop\n"
             "def run(fw, hw):\n"
             "    fed = hw.wdt.fed; coop.tick(); coop.tick()\n"
             "    print('LOOP', fw.device_id, hw.wdt.fed - fed)\n"
-            "    time.sleep(1.5)\n"
+            "    sys.stdin.readline()\n"
             "device.main.run = run\n"
             "device.main.start()\n"
             "print('BACK')\n"
-            "time.sleep(1.5)\n")
+            "sys.stdin.readline()\n")
     (tree / "_c.py").write_text(code)
     e = dict(os.environ, MICROPYPATH=FAKEBOARD + ":lib")
     proc = subprocess.Popen([sys.executable, "-c", "import sys, micropython_unix; sys.exit(micropython_unix.run_main(sys.argv))",
-                             str(tree / "_c.py")], cwd=tree, env=e, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                             str(tree / "_c.py")], cwd=tree, env=e, stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
     try:
         loop = proc.stdout.readline().split()
         assert loop[:2] == ["LOOP", "LC-133B2D2F"] and loop[2] == "2"      # the engine's hook feeds the watchdog
         during = _sigint_caught(proc.pid)
+        proc.stdin.write("\n")
+        proc.stdin.flush()
         assert proc.stdout.readline().strip() == "BACK"
         after = _sigint_caught(proc.pid)
+        proc.stdin.write("\n")
+        proc.stdin.flush()
     finally:
-        out, err = proc.communicate(timeout=30)
+        out, err = proc.communicate(timeout=HANG_GUARD_S)
     assert proc.returncode == 0, err
     assert during is False and after is True
 

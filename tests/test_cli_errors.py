@@ -14,11 +14,12 @@ import pytest
 
 from engine import timescale
 from host import archive
+from waiting import HANG_GUARD_S
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
 
-def limbclock(*args, timeout=30):
+def limbclock(*args, timeout=HANG_GUARD_S):
     p = subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
                        timeout=timeout)
     return p.returncode, p.stdout, p.stderr

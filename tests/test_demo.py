@@ -19,12 +19,13 @@ import pytest
 
 from engine.session import parse_session
 from host import archive
+from waiting import HANG_GUARD_S
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 GPX = "{http://www.topografix.com/GPX/1/1}"
 
 
-def limbclock(*args, timeout=120):
+def limbclock(*args, timeout=HANG_GUARD_S):     # hang guard only (the demo's time: make bench, bench_host)
     p = subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
                        timeout=timeout)
     assert p.returncode == 0, p.stderr
@@ -35,7 +36,7 @@ def limbclock(*args, timeout=120):
 def demo(tmp_path_factory):
     out = str(tmp_path_factory.mktemp("demo") / "out")
     p = subprocess.run([sys.executable, "-m", "host", "demo", "--out", out, "--json"], cwd=ROOT,
-                       capture_output=True, text=True, timeout=120)
+                       capture_output=True, text=True, timeout=HANG_GUARD_S)            # hang guard only
     assert p.returncode == 0, p.stderr
     return out, p.stderr, json.loads(p.stdout)
 
@@ -44,7 +45,6 @@ def test_demo_runs_the_whole_chain(demo):
     out, human, s = demo
     assert s["sync"]["via"] == "virtual timer" and s["sync"]["new"] >= s["contacts"] >= 10
     assert s["sync"]["again"] == {"new": 0, "duplicates": 0}
-    assert s["wall_s"] < 60
     # the fix beats the dead reckoning against the scenario's truth
     assert s["error_nm"] < s["dr_error_nm"] and s["error_nm"] < 4.0
     # identification gave the unlabelled contacts their images; the mislabelled one was read as the

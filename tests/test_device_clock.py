@@ -80,6 +80,26 @@ def test_uncertainty_model_values():
     assert abs(u - expect) <= 1.0
 
 
+def test_holdover_bound_holds_and_is_tight_when_aging_dominates():
+    # An oscillator whose only change after the fit is aging (no temperature wander), aging at the
+    # profile's full stated rate for two days without GPS.  Physics of the simulated crystal
+    # (device.simhw.Oscillator): a frequency moving at a steady rate accumulates a time error of
+    # 1/2 a dt^2, so the bound must hold, and it must not overstate the error either (half the aging
+    # term would be broken, double the aging term would overstate by far more than 10 %).
+    prof = clk.Profile("aging-only", 30, 0.0, 0.1, 2.0)         # 0.1 ppm/day: a crystal's first weeks
+    osc = Oscillator(T0, 4.0, aging_ppm_per_day=prof.aging_ppm_per_day)
+    c = clk.Clock(prof)
+    last = lock(c, osc, 120)
+    for days in (0.5, 1.0, 2.0):
+        t_press = last + int(days * 86400) * 1000000
+        tick = osc.elapsed_ticks(t_press)
+        utc, state, unc = c.stamp(tick, tick + 10)
+        err = abs(utc - t_press)
+        assert state == clk.HOLDOVER and err > 1000 * days          # aging is what moved the clock
+        assert err <= unc <= 1.1 * err + prof.sigma_lock_us + 3.0 * c.drift_sigma_ppm * days * 86400, \
+            (days, err, unc)
+
+
 def test_ambiguous_label_is_rejected_and_wrong_second_never_paired():
     osc = Oscillator(T0, 3.0)
     c = clk.Clock()

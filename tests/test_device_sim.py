@@ -4,7 +4,6 @@ import os
 import signal
 import subprocess
 import sys
-import time
 
 import pytest
 
@@ -12,6 +11,7 @@ from device import log as L
 from device.sim import VirtualTimer, SimError, read_contacts
 from engine.timescale import parse_utc
 from host.timer_client import TimerClient
+from waiting import HANG_GUARD_S, wait_for
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 T = parse_utc("2029-08-03T06:41:12.250Z")
@@ -73,18 +73,16 @@ def test_sim_command_prints_port_first_and_stops_on_sigterm(tmp_path):
     try:
         port = proc.stdout.readline().strip()
         assert port.startswith("/dev/")
-        with TimerClient(port, timeout=0.5, retries=10) as c:
+        with TimerClient(port, timeout=1.0, retries=10) as c:
             assert c.handshake()["protocol"] == 2
-            deadline = time.time() + 60
-            while c.status()["log"]["last_seq"] != 3:
-                assert time.time() < deadline, "the virtual timer did not press its 3 contacts"
+            wait_for(lambda: c.status()["log"]["last_seq"] == 3, "the virtual timer to press its 3 contacts")
             recs = list(c.read_log(1))
         assert [r.kind for r in recs] == [L.CONTACT] * 3
         assert abs(recs[2].utc_us - (T + 8000000)) <= 1000
         assert "LOCKED" in disp.read_text()
     finally:
         proc.send_signal(signal.SIGTERM)
-        out, err = proc.communicate(timeout=10)
+        out, err = proc.communicate(timeout=HANG_GUARD_S)
     assert proc.returncode == 0, err
     summary = json.loads(out.strip().splitlines()[-1])
     assert summary["last_seq"] == 3 and summary["power_cuts"] == 0
@@ -94,10 +92,10 @@ def test_sim_command_bad_options(tmp_path):
     sess = tmp_path / "s.json"
     sess.write_text(json.dumps(session(1)))
     p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(sess), "--link-faults", "0.9"],
-                       cwd=ROOT, capture_output=True, text=True, timeout=30)
+                       cwd=ROOT, capture_output=True, text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 2 and "--link-faults" in p.stderr and len(p.stderr.strip().splitlines()) == 1
     p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(tmp_path / "none.json")],
-                       cwd=ROOT, capture_output=True, text=True, timeout=30)
+                       cwd=ROOT, capture_output=True, text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 2 and "none.json" in p.stderr
 
 
@@ -107,7 +105,7 @@ def test_sim_command_names_a_bad_state_directory(tmp_path):
     blocker = tmp_path / "state"
     blocker.write_text("a file where the state directory should be")
     p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(sess), "--state", str(blocker)],
-                       cwd=ROOT, capture_output=True, text=True, timeout=30)
+                       cwd=ROOT, capture_output=True, text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 2 and len(p.stderr.strip().splitlines()) == 1
     assert "state directory" in p.stderr and str(blocker) in p.stderr and "session file" not in p.stderr
 
@@ -120,14 +118,12 @@ def test_sim_command_with_a_full_flash_holds_the_presses_and_says_so(tmp_path):
                             cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         port = proc.stdout.readline().strip()
-        with TimerClient(port, timeout=0.5, retries=10) as c:
-            deadline = time.time() + 60
-            while c.status()["storage"]["held"] == 0:
-                assert time.time() < deadline, "the virtual timer did not fill its flash"
+        with TimerClient(port, timeout=1.0, retries=10) as c:
+            wait_for(lambda: c.status()["storage"]["held"] > 0, "the virtual timer to fill its flash")
             st = c.status()
         assert st["storage"]["error"] == "flash full" and st["display"][3].startswith("FLASH FULL: SYNC!")
     finally:
         proc.send_signal(signal.SIGTERM)
-        out, err = proc.communicate(timeout=10)
+        out, err = proc.communicate(timeout=HANG_GUARD_S)
     assert proc.returncode == 0 and "Traceback" not in err, err
     assert "press(es) held in its memory" in out

@@ -66,6 +66,28 @@ def test_a_receiver_straddling_the_second_is_refused():
     assert vt.fw.lines[0] == "NO TIME - wait GPS"
 
 
+@pytest.mark.parametrize("names_next, delays, receiver", [
+    # sentences naming the COMING edge, ending 25-30 ms before it, read as "preceding": 970 ms after
+    # the edge before, past the window's 950 ms end
+    (True, (970000, 975000), clk.PRECEDING),
+    # sentences naming the edge BEFORE, ending 10-15 ms before the next one, read as "next": closer to
+    # that edge than the window's 20 ms start
+    (False, (985000, 990000), clk.NEXT),
+])
+def test_a_label_next_to_an_edge_is_never_paired(names_next, delays, receiver):
+    # Either label could belong to the edge on its other side (a millisecond of jitter or a slow
+    # loop pass moves it across): the receiver profile's delay window (20-950 ms, common practice)
+    # refuses to pair it.  Paired, each would stamp every contact exactly 1 s wrong while LOCKED.
+    cs = presses(4)
+    vt = VirtualTimer(contacts=cs, names_next=names_next, label_delays_us=delays, receiver=receiver,
+                      ticks_period=P22)
+    vt.run_contacts()
+    recs = contacts_of(vt)
+    st = vt.fw.clock.status(vt.fw.now())
+    assert st["counts"]["pairs"] == 0 and st["counts"]["ambiguous"] > 50 and st["state"] == "none"
+    assert len(recs) == 4 and [r.time_state for r in recs] == [clk.NONE] * 4    # kept with their ticks
+
+
 def test_receiver_profile_settings_are_checked():
     with pytest.raises(clk.ClockError):
         clk.ReceiverProfile("x", "after")

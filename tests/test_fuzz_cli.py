@@ -24,6 +24,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 import fuzz_sessions as fz
 from engine import limits
 from engine.session import parse_session
+from waiting import HANG_GUARD_S
 
 ROOT = fz.ROOT
 EXAMPLES_PER_COMMAND = 50       # make test: 200 inputs in all; make bench runs many more
@@ -225,7 +226,7 @@ def test_fix_uses_a_repeated_contact_once(workdir):
 
 def _process(*argv):
     p = subprocess.run([sys.executable, "-m", "host"] + list(argv), cwd=ROOT, capture_output=True, text=True,
-                       timeout=120)
+                       timeout=HANG_GUARD_S)
     return p.returncode, p.stdout, p.stderr
 
 
@@ -260,12 +261,12 @@ def test_a_crash_in_the_real_process_is_one_line_and_exit_70(tmp_path):
             "f.solve_fix = lambda *a, **k: math.sqrt(-1.0); "
             "from host.cli import main; sys.exit(main(sys.argv[1:]))")
     p = subprocess.run([sys.executable, "-c", code, "fix", str(path), "--json"], cwd=ROOT, capture_output=True,
-                       text=True, timeout=120)
+                       text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 70 and p.stdout == "" and "Traceback" not in p.stderr
     assert len(p.stderr.splitlines()) == 1 and "internal error" in p.stderr
     assert "ValueError: math domain error (<string>:1)" in p.stderr, p.stderr
     p = subprocess.run([sys.executable, "-c", code, "--debug", "fix", str(path), "--json"], cwd=ROOT,
-                       capture_output=True, text=True, timeout=120)
+                       capture_output=True, text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 1 and "Traceback" in p.stderr and p.stderr.strip().endswith("math domain error")
 
 

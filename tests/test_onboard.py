@@ -23,6 +23,7 @@ from engine.session import parse_session
 from engine.sphere import distance_nm
 from engine.timescale import format_utc, parse_utc
 from host.timer_client import TimerClient
+from waiting import HANG_GUARD_S, wait_for
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 SESSIONS = os.path.join(ROOT, "vectors", "sessions")
@@ -300,7 +301,6 @@ def test_sim_command_shows_the_onboard_fix(tmp_path):
     import signal
     import subprocess
     import sys
-    import time
     doc = load("station_sun")
     doc["contacts"] = doc["contacts"][:8]
     sess = tmp_path / "s.json"
@@ -311,20 +311,17 @@ def test_sim_command_shows_the_onboard_fix(tmp_path):
                             cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         port = proc.stdout.readline().strip()
-        with TimerClient(port, timeout=0.5, retries=10) as c:
-            deadline = time.time() + 60
-            while c.status()["onboard_fix"] is None:
-                assert time.time() < deadline, "the virtual timer did not reduce on board"
-            fix = c.status()["onboard_fix"]
+        with TimerClient(port, timeout=1.0, retries=10) as c:
+            fix = wait_for(lambda: c.status()["onboard_fix"], "the virtual timer to reduce on board")
         lines = disp.read_text().splitlines()
         assert lines[4] == "%s %s" % (fmt_lat(fix["lat_deg"]), fmt_lon(fix["lon_deg"]))
     finally:
         proc.send_signal(signal.SIGTERM)
-        out, err = proc.communicate(timeout=10)
+        out, err = proc.communicate(timeout=HANG_GUARD_S)
     assert proc.returncode == 0, err
     assert json.loads(out.strip().splitlines()[-1])["onboard_fix"]["contacts_used"] == 8
     p = subprocess.run([sys.executable, "-m", "host", "sim", "--session", str(sess), "--fix-after", "10"],
-                       cwd=ROOT, capture_output=True, text=True, timeout=30)
+                       cwd=ROOT, capture_output=True, text=True, timeout=HANG_GUARD_S)
     assert p.returncode == 2 and "--fix-after needs --conditions" in p.stderr
     assert len(p.stderr.strip().splitlines()) == 1
 

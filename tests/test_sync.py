@@ -14,7 +14,6 @@ import random
 import signal
 import subprocess
 import sys
-import time
 
 import pytest
 
@@ -23,6 +22,7 @@ from device.sim import VirtualTimer
 from engine import timescale
 from host import archive, sync
 from host.timer_client import NoAnswer, TimerClient, TimerError, VersionMismatch
+from waiting import HANG_GUARD_S
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 T0 = timescale.parse_utc("2031-05-14T07:00:00Z")
@@ -65,22 +65,6 @@ def check_same(conn, vt, recs, log_id=None):
     raw = dict(conn.execute("SELECT seq, raw FROM log_records WHERE device_id=? AND log_id=?", (dev, log_id)).fetchall())
     assert [raw[r.seq] for r in recs] == [r.pack() for r in recs]
     assert archive.integrity_ok(conn)
-
-
-def committed(db, device_id):
-    """Highest seq committed for the device, read without taking any lock (-1: nothing yet)."""
-    import sqlite3
-    if not os.path.exists(db):
-        return -1
-    try:
-        conn = sqlite3.connect("file:%s?mode=ro" % db, uri=True, timeout=1.0)
-        try:
-            row = conn.execute("SELECT last_seq FROM logs WHERE device_id=? AND log_id != 0", (device_id,)).fetchone()
-        finally:
-            conn.close()
-    except sqlite3.DatabaseError:          # not created yet (or not migrated yet)
-        return -1
-    return -1 if row is None else row[0]
 
 
 @pytest.mark.parametrize("rate", [0.001, 0.02])
@@ -280,7 +264,7 @@ def damage(path, nbytes=8192, seed=11):
 
 def limbclock(*args, **kw):
     return subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
-                          timeout=120, **kw)
+                          timeout=HANG_GUARD_S, **kw)
 
 
 def test_damaged_archive_is_never_acknowledged(tmp_path):
@@ -440,47 +424,67 @@ def test_push_instrument_is_verified(tmp_path):
                                    b'"lat_deg": 141.2, "lon_deg": -9.7, "observer": {"eye_height_m": 2.5}}')
 
 
+# Kills at chosen points of a real ``limbclock sync`` process (the test hook of host/sync.py, read only
+# when LIMBCLOCK_TEST_KILL_AFTER_RECORDS is set), with --batch 4 and an ACK every 240 records:
+# (hook, records the archive holds after the kill, records the timer has reclaimed after the kill).
+KILLS = [
+    ("0:handshake", 0, 0),          # after the handshake, before any record: nothing stored
+    ("10:store", 8, 0),             # inside the third batch's transaction: the two committed batches stay
+    ("240:commit", 240, 0),         # after the COMMIT that fills the first ACK range, before its ACK
+    ("300:ack", 480, 480),          # re-reads 1..240 (unacknowledged), dies right after the ACK of 1..480
+    ("100:commit", 580, 480),       # from 481: dies 25 batches in, between two ACKs
+    ("1:store", 580, 480),          # dies in its first transaction: nothing of it committed
+]
+
+
 def test_killed_sync_loses_and_duplicates_nothing(tmp_path):
-    """Kill ``limbclock sync`` (SIGKILL) at seeded random moments, then sync to the end."""
-    vt = VirtualTimer(contacts=presses(1500, step_s=2))
+    """Kill ``limbclock sync`` (SIGKILL) at each point of the sync's order of operations (before any
+    record, inside a transaction, between COMMIT and ACK, right after an ACK), then sync to the end:
+    every kill leaves exactly the committed batches in the archive, a prefix of the log each once, the
+    timer holding everything not acknowledged, and the last sync completes the archive exactly.
+    The kills come from the test hook, not from a timer: nothing here depends on the machine's speed."""
+    vt = VirtualTimer(contacts=presses(700, step_s=2))
     vt.run_contacts()
     recs = device_records(vt)
+    first = recs[0].seq
     port = vt.start()
     db = str(tmp_path / "a.sqlite3")
-    rng = random.Random(1234)
-    cmd = [sys.executable, "-m", "host", "sync", "--port", port, "--db", db, "--no-progress", "--timeout", "0.3",
-           "--batch", "4"]
-    mid_transfer = 0
+    cmd = [sys.executable, "-m", "host", "sync", "--port", port, "--db", db, "--no-progress", "--batch", "4"]
+    env = dict(os.environ)
     try:
-        for _ in range(10):
-            held = committed(db, vt.device_id)
-            proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-            if rng.random() < 0.3:
-                time.sleep(rng.uniform(0.0, 0.3))               # early: start-up, handshake, first batch
-            else:                                               # or once the archive has grown a little
-                target = held + rng.randint(1, 200)
-                deadline = time.time() + 20
-                while proc.poll() is None and committed(db, vt.device_id) < target and time.time() < deadline:
-                    time.sleep(0.002)
-            killed = proc.poll() is None
-            if killed:
-                proc.send_signal(signal.SIGKILL)
-            proc.wait(10)
-            if os.path.exists(db):
-                conn = archive.connect(db)
-                got = archived(conn, vt.device_id)
-                assert got == list(range(recs[0].seq, recs[0].seq + len(got)))   # a prefix, each once
-                assert archive.integrity_ok(conn)
-                conn.close()
-                mid_transfer += killed and 0 < len(got) < len(recs)
-        out = subprocess.run(cmd + ["--json"], cwd=ROOT, capture_output=True, text=True, timeout=60)
+        for spec, held, reclaimed in KILLS:
+            env[sync.TEST_KILL_ENV] = spec
+            p = subprocess.run(cmd, cwd=ROOT, env=env, capture_output=True, text=True, timeout=HANG_GUARD_S)   # hang guard
+            assert p.returncode == -signal.SIGKILL, (spec, p.returncode, p.stderr)
+            conn = archive.connect(db)
+            got = archived(conn, vt.device_id)
+            assert got == list(range(first, first + held)), spec            # whole batches, each once
+            assert archive.integrity_ok(conn)
+            conn.close()
+            assert vt.fw.log.confirmed_seq == first - 1 + reclaimed, spec    # only what was acknowledged
+            assert device_records(vt) == recs[reclaimed:]                    # the rest still on the timer
+        del env[sync.TEST_KILL_ENV]
+        out = subprocess.run(cmd + ["--json"], cwd=ROOT, env=env, capture_output=True, text=True, timeout=HANG_GUARD_S)
         assert out.returncode == 0, out.stderr
     finally:
         vt.stop()
-    assert mid_transfer >= 3
+    res = json.loads(out.stdout)
+    assert res["new"] == len(recs) - KILLS[-1][1] and res["duplicates"] == KILLS[-1][1] - KILLS[-1][2]
     conn = archive.connect(db)
     check_same(conn, vt, recs)
     assert vt.fw.log.confirmed_seq == recs[-1].seq
+
+
+def test_kill_hook_is_checked(tmp_path, monkeypatch):
+    """The test hook refuses a malformed setting instead of silently doing nothing."""
+    vt = VirtualTimer(contacts=presses(3))
+    vt.run_contacts()
+    conn = archive.connect(str(tmp_path / "a.sqlite3"))
+    for bad in ("x:commit", "5:later", "5"):
+        monkeypatch.setenv(sync.TEST_KILL_ENV, bad)
+        with pytest.raises(sync.SyncError, match=sync.TEST_KILL_ENV):
+            sync.sync(TimerClient(vt.loopback()), conn, progress=False)
+    assert vt.fw.log.confirmed_seq == 0
 
 
 def test_voids_and_sessions_from_the_button(tmp_path):
@@ -506,48 +510,41 @@ def test_voids_and_sessions_from_the_button(tmp_path):
     assert archive.session_contacts(conn, groups[0], include_voided=True)[2]["void"] is True
 
 
-def test_pty_disconnect_mid_transfer_then_resync(tmp_path):
-    """The timer goes away mid-transfer (its pseudo-terminal closes); back on a new port with its
-    stored log, the next sync fetches exactly the rest."""
-    import threading
+def test_pty_disconnect_mid_transfer_then_resync(tmp_path, monkeypatch):
+    """The timer goes away mid-transfer (its pseudo-terminal closes) right after the batch that
+    brings the archive to seq 300 is stored (one ACK, of 1..240, made before); back on a new port with its stored log, the next sync
+    fetches exactly the rest.  The plug is pulled at a record count, not after a wall-clock wait."""
     state = str(tmp_path / "state")
     vt = VirtualTimer(contacts=presses(600), state_dir=state)
     vt.run_contacts()
     recs = device_records(vt)
     port = vt.start()
     db = str(tmp_path / "a.sqlite3")
-    errors = []
+    real = archive.store_records
 
-    def pull():
-        try:
-            sync.sync_port(port, db, progress=False, timeout=0.2, retries=2, batch=4)
-        except OSError as exc:
-            errors.append(exc)
-    th = threading.Thread(target=pull)
-    th.start()
-    deadline = time.time() + 20
-    while time.time() < deadline:         # pull the plug once a hundred records are in
-        if os.path.exists(db):
-            watch = archive.connect(db)
-            got = archive.last_seq(watch, vt.device_id) if archive.devices(watch) else -1
-            watch.close()
-            if got >= 100:
-                break
-        time.sleep(0.01)
-    vt.stop()
-    th.join(20)
-    assert len(errors) == 1 and isinstance(errors[0], TimerError), errors     # went away / cannot write
+    def store_then_unplug(conn, device_id, records, log_id=0):
+        out = real(conn, device_id, records, log_id)
+        if records and records[-1]["seq"] >= 300 and vt._thread is not None:
+            vt.stop()                                  # the timer's port closes under the sync
+        return out
+    monkeypatch.setattr(archive, "store_records", store_then_unplug)
+    try:
+        with pytest.raises(TimerError):                # went away / cannot write
+            sync.sync_port(port, db, progress=False, timeout=1.0, retries=2, batch=4)
+    finally:
+        vt.stop()
+    monkeypatch.setattr(archive, "store_records", real)
     conn = archive.connect(db)
     lid = vt.fw.log.log_id
     part = archive.last_seq(conn, vt.device_id, lid)
-    assert 100 <= part < recs[-1].seq
+    assert part == 300                                 # whole batches of 4 from seq 1: the batch ending at 300
     back = VirtualTimer(contacts=[], state_dir=state, start_us=vt.now_us())
     # acknowledged <= committed: what was committed since the last acknowledgement is re-read
     confirmed = back.fw.log.confirmed_seq
-    assert part - sync.ACK_EVERY - 4 <= confirmed <= part
+    assert sync.ACK_EVERY == 240 and confirmed == 240    # the ACK of the first full range, none after
     port = back.start()
     try:
-        res = sync.sync_port(port, db, progress=False, timeout=0.2)
+        res = sync.sync_port(port, db, progress=False, timeout=1.0)
     finally:
         back.stop()
     assert res["new"] == recs[-1].seq - part and res["duplicates"] == part - confirmed

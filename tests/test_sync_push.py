@@ -23,6 +23,7 @@ from device.sim import VirtualTimer
 from engine.timescale import parse_utc
 from host import sync
 from host.timer_client import TimerClient
+from waiting import HANG_GUARD_S
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 REF_LOWER_I01 = parse_utc("2030-10-20T19:41:07.155Z")    # morning_run.json contacts[1] (DE421 + ERFA)
@@ -124,7 +125,7 @@ def test_bad_track_files_are_refused_before_sending(text, message):
 
 def limbclock(*args):
     return subprocess.run([sys.executable, "-m", "host"] + list(args), cwd=ROOT, capture_output=True, text=True,
-                          timeout=60)
+                          timeout=HANG_GUARD_S)
 
 
 def test_cli_push_track_over_a_pseudo_terminal(tmp_path):
