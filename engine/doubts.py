@@ -24,7 +24,8 @@ per reason to doubt the fix, empty when the fix is consistent.  The codes:
 * ``identification_ambiguous`` -- contacts whose image could not be told; or no
   contact could be identified with confidence and the fix rests on the most
   probable assignment.
-* ``many_rejected`` -- more than a third of the usable contacts rejected.
+* ``many_rejected`` -- a quarter or more of the usable contacts rejected (more than
+  a third is no fix at all: the fix's rejection limit, ``NoConsistentFix``).
 * ``residuals_high`` -- the residuals are far beyond the error model:
   s0^2 dof above the chi-square quantile at 0.999 (Wilson and Hilferty 1931).
 * ``long_run`` -- a running fix over ``LONG_RUN_H`` hours or more on a DR track
@@ -137,7 +138,7 @@ def assess(session, alm, result, ident=None, at_us=None, deviation_offset="auto"
             doubts.extend(_slips(session, alm, result, sigma_dr, at_us, deviation_offset))
     usable = _usable(result)
     rejected = usable - result["contacts_used"]
-    if usable and 3 * rejected > usable:
+    if usable and 4 * rejected >= usable:       # (more than a third: no fix, see consistency)
         doubts.append(_doubt("many_rejected", "%d of %d usable contacts rejected: the fix rests on %d"
                              % (rejected, usable, result["contacts_used"])))
     dof = _dof(result)

@@ -53,7 +53,8 @@ def add(name, path, old, new, tests, why, also=(), equivalent=None):
     MUTANTS.append(Mutant(name, [(path, old, new)] + list(also), list(tests), why, equivalent))
 
 
-FIX_TESTS = ["tests/test_fix_coverage.py", "tests/test_fix_reference.py", "tests/test_fix_properties.py"]
+FIX_TESTS = ["tests/test_fix_coverage.py", "tests/test_fix_reference.py", "tests/test_fix_properties.py",
+             "tests/test_fix_perturbed.py", "tests/test_fix_rejection.py"]
 
 
 def define():
@@ -73,19 +74,56 @@ def define():
         '"sigma_time_s": 0.25', '"sigma_time_s": 1.0',
         FIX_TESTS, "the timing sigma 0.25 s taken x4")
     add("fix-image-correlation-dropped", "engine/fix.py",
-        "if group == lc[b].image:", "if same and group == lc[b].image:",
-        FIX_TESTS, "the per-image correlation (one deviation error shared by its contacts) dropped")
+        "        sg = sig_img[c.image]\n        if sg > 0.0:",
+        "        sg = sig_img[c.image]\n        var_l[k] += sg * sg\n        if False:",
+        FIX_TESTS, "the per-image correlation (one deviation error shared by its contacts) dropped: each "
+                   "contact's image error taken as independent")
     add("fix-reaction-delay-sign", "engine/fix.py",
         "t_us = c.t_us - delay_us if delay_us else c.t_us", "t_us = c.t_us + delay_us if delay_us else c.t_us",
         FIX_TESTS, "the reaction delay added to the contact times instead of taken off")
     add("fix-yaw-mean-sign", "engine/fix.py",
-        "dev_l.append(dev if calibrated else dev - yaw_mean / 60.0)",
-        "dev_l.append(dev if calibrated else dev + yaw_mean / 60.0)",
+        "dev_l[k] = dev if calibrated else dev - yaw_mean / 60.0",
+        "dev_l[k] = dev if calibrated else dev + yaw_mean / 60.0",
         FIX_TESTS, "the mean yaw loss added to the deviation instead of taken off")
+    add("fix-rejection-limit-half", "engine/fix.py",
+        "MAX_REJECTED_DIV = 3 ", "MAX_REJECTED_DIV = 2 ",
+        FIX_TESTS, "up to half of the contacts rejected as blunders before the fix gives up (a third)")
+    add("fix-epoch-not-last-used", "engine/fix.py",
+        "        if at_us is not None:\n            break\n        last = max(use,",
+        "        if True:\n            break\n        last = max(use,",
+        FIX_TESTS, "the epoch left at the last contact even when it was rejected (not the last one used)")
+    add("fix-time-gap-48h", "engine/fix.py",
+        "TIME_GAP_H = 12.0 ", "TIME_GAP_H = 48.0 ",
+        FIX_TESTS, "a contact a day away from the others not named a time blunder")
+    add("fix-offset-never-estimated", "engine/fix.py",
+        "return var_free < var_held + per_arcmin2 * s_off * s_off", "return False",
+        FIX_TESTS, "the equal-altitude offset never estimated by 'auto', even where the geometry determines it")
+    # ---- doubts (engine/doubts.py) and duplicates (engine/session.py) ----
+    add("doubts-far-from-dr-never", "engine/doubts.py",
+        "MAHALANOBIS2 = 13.8 ", "MAHALANOBIS2 = 1e30 ",
+        ["tests/test_doubts.py"], "a fix far from the DR for its stated uncertainty never doubted")
+    add("doubts-residuals-high-never", "engine/doubts.py",
+        "        if chi2 > q:", "        if False:",
+        ["tests/test_doubts.py"], "residuals far beyond the error model never doubted")
+    add("doubts-many-rejected-third", "engine/doubts.py",
+        "if usable and 4 * rejected >= usable:", "if usable and 3 * rejected > usable:",
+        ["tests/test_doubts.py"], "rejections doubted only beyond a third (never: the fix refuses those) instead of "
+                                  "from a quarter")
+    add("doubts-long-run-never", "engine/doubts.py",
+        "    if run_h < LONG_RUN_H:", "    if True:",
+        ["tests/test_doubts.py"], "a long running fix on an assumed course and speed never doubted")
+    add("duplicate-window-zero", "engine/limits.py",
+        "DUPLICATE_US = 500000", "DUPLICATE_US = 0",
+        ["tests/test_session.py", "tests/test_fuzz_cli.py"], "a contact timed twice within 0.5 s used twice")
     # ---- identification (engine/identify.py) ----
     add("identify-confidence-0.6", "engine/identify.py",
         "DEFAULT_CONFIDENCE = 0.99", "DEFAULT_CONFIDENCE = 0.6",
         ["tests/test_identify.py"], "an identification called confident at 0.6 instead of 0.99")
+    add("identify-near-dr-only", "engine/identify.py",
+        "_search(p, count, radius_nm, False, use_dr), use_dr), \"globe\"",
+        "_search(p, count, radius_nm, True, use_dr), use_dr), \"globe\"",
+        ["tests/test_identify_calibration.py", "tests/test_doubts.py", "tests/test_identify.py"],
+        "identification searches only near the DR (4 DR sigma + 60 nmi), not the whole globe")
     # ---- time scales (engine/timescale.py) ----
     add("leap-second-moved", "engine/timescale.py",
         "(days_from_civil(1985, 7, 1), 23)", "(days_from_civil(1985, 9, 1), 23)",

@@ -346,6 +346,37 @@ def test_quick_check_on_open_refuses_a_damaged_file(tmp_path):
     assert "is damaged (SQLite quick_check" in str(e.value) and "\n" not in str(e.value)
 
 
+def test_quick_check_on_open_finds_a_damaged_data_page_nothing_else_reads(tmp_path):
+    """The last page of the file (rows of the log, read by no query on open) overwritten: the schema
+    and the tables' roots are intact, so opening and migrating would go on; only SQLite's quick_check
+    (sqlite.org/pragma.html#pragma_quick_check) finds it, and the archive is refused before any write."""
+    path = str(tmp_path / "a.sqlite3")
+    conn = small_archive(path)
+    with archive.transaction(conn):
+        archive.store_records(conn, "T-1", [contact(s, 60 * s) for s in range(9, 900)], 0xA1)
+    conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    conn.close()
+    raw = sqlite3.connect(path)
+    page = raw.execute("PRAGMA page_size").fetchone()[0]
+    raw.close()
+    size = os.path.getsize(path)
+    assert size // page > 20
+    with open(path, "r+b") as f:
+        f.seek(size - page)
+        f.write(bytes((k * 7919 + 13) % 251 for k in range(page)))
+    raw = sqlite3.connect(path)                       # the schema still reads
+    assert len(raw.execute("SELECT name FROM sqlite_master WHERE type='table'").fetchall()) >= 10
+    raw.close()
+    with open(path, "rb") as f:
+        before = f.read()
+    with pytest.raises(archive.ArchiveDamaged) as e:
+        archive.connect(path)
+    assert "is damaged (SQLite quick_check" in str(e.value) and "nothing was written" in str(e.value)
+    with open(path, "rb") as f:
+        assert f.read() == before
+    assert not os.path.exists(path + "-wal")
+
+
 def readonly_runner():
     """A way to run a command with a path on read-only media: a private mount namespace where the
     path is bind-mounted read-only (``unshare``, util-linux), or plain file modes for a user other
