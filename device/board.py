@@ -24,7 +24,7 @@ with one)::
 
 What each part costs the main loop.  The GPS UART receives into a buffer of
 ``rx_buffer`` bytes while the loop is busy elsewhere: a profile sizes it for its
-longest pass (``loop_stall_ms``: a log compaction after a sync's ACK, a new plan)
+longest pass (``loop_stall_ms``: reclaiming acknowledged log segments after a sync's ACK, a new plan)
 at the receiver's rate, ``baud / 10`` bytes a second (2048 bytes cover 2.1 s at
 9600 Bd).  The buzzer is a PWM pin switched by ``idle()`` from a schedule, so a
 beep never sleeps in the loop.  The display sends only the pages that changed

@@ -3,7 +3,6 @@ import json
 
 from engine import identify
 from host.cautions import CAUTION_TEXT
-from host.errors import UserError
 
 
 def register(sub):
