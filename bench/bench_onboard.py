@@ -206,7 +206,7 @@ def run():
     if not mpu.available():
         print("   unix port not installed (pip install -e '.[test]'): skipped")
     else:
-        parsed = ("import gc, json, engine\nfrom engine import almanac, session, fix, identify, model\n"
+        parsed = ("import gc, json, engine\nfrom engine import almanac, session, fix, identify, model, doubts\n"
                   "alm = almanac.load(keep_years=1)\n_text = %r\nalm.position('sun', %d)\n")
         call_parsed = ("s = session.parse_session(_text, alm)\n_text = None\nr = engine.reduce_session(s, alm)\n"
                        "r = s = None\n")

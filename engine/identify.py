@@ -199,7 +199,15 @@ class _CachedAlmanac:
 
     def __init__(self, alm):
         self.alm = alm
-        self.cache = {}
+        # the table sized once, before the search fragments the heap: growing it on the way left the
+        # old tables as holes, and a board's heap failed to find 592 bytes with 28 KB free.  Keys
+        # deleted leave their slots to new keys (MicroPython's map and CPython's dict alike).
+        cache = {}
+        for k in range(CACHE_PLACES):
+            cache[k] = None
+        for k in range(CACHE_PLACES):
+            del cache[k]
+        self.cache = cache
 
     def position(self, body, t_us, dut1_us=0):
         key = (body, t_us, dut1_us)
@@ -652,37 +660,49 @@ class _Table:
     fits all along a line of position, lines that hardly cross, takes one place, not dozens)."""
 
     def __init__(self, cap):
+        # the lists at their full length from the start, pruned in place: a table that grew and was
+        # rebuilt at every prune left holes a fragmented board heap could not reuse
         self.cap = cap
-        self.keys = []
-        self.vals = []
+        self.n = 0
+        self.keys = [None] * (2 * cap)
+        self.vals = [None] * (2 * cap)
         self.bound = BIG
 
     def add(self, assign, score, lat, lon):
         assign = bytes(assign)
-        for k in range(len(self.keys)):
-            if self.keys[k] == assign:
-                v = self.vals[k]
+        keys, vals = self.keys, self.vals
+        for k in range(self.n):
+            if keys[k] == assign:
+                v = vals[k]
                 if (v[1] - lat) ** 2 + ((v[2] - lon + math.pi) % (2 * math.pi) - math.pi) ** 2 * math.cos(lat) ** 2 \
                         < (SEED_SAME_NM * NM_RAD) ** 2:
                     if score < v[0]:
-                        self.vals[k] = (score, lat, lon)
+                        vals[k] = (score, lat, lon)
                     return
-        self.keys.append(assign)
-        self.vals.append((score, lat, lon))
-        if len(self.keys) >= 2 * self.cap:
+        keys[self.n] = assign
+        vals[self.n] = (score, lat, lon)
+        self.n += 1
+        if self.n >= 2 * self.cap:
             self.prune()
 
     def prune(self):
-        order = sorted(range(len(self.keys)), key=lambda k: self.vals[k][0])[:self.cap]
-        kk = [self.keys[k] for k in order]
-        vv = [self.vals[k] for k in order]
-        del self.keys[len(kk):]
-        del self.vals[len(vv):]
-        for k in range(len(kk)):
-            self.keys[k] = kk[k]
-            self.vals[k] = vv[k]
-        if len(self.vals) >= self.cap:
-            self.bound = self.vals[-1][0]
+        """Keep the ``cap`` cheapest, in order (a stable insertion sort in place: no allocation)."""
+        keys, vals = self.keys, self.vals
+        for i in range(1, self.n):
+            ki, vi = keys[i], vals[i]
+            j = i - 1
+            while j >= 0 and vals[j][0] > vi[0]:
+                keys[j + 1] = keys[j]
+                vals[j + 1] = vals[j]
+                j -= 1
+            keys[j + 1] = ki
+            vals[j + 1] = vi
+        n = min(self.n, self.cap)
+        for k in range(n, self.n):
+            keys[k] = vals[k] = None
+        self.n = n
+        if n >= self.cap:
+            self.bound = vals[n - 1][0]
 
 
 def _search(p, count, radius_nm, local, use_dr=True):
@@ -718,7 +738,7 @@ def _search(p, count, radius_nm, local, use_dr=True):
     near.prune()
     out = []
     for near_dr, t in ((True, near), (False, glob)):
-        for k in range(len(t.keys)):
+        for k in range(t.n):
             a, lat, lon = t.keys[k], t.vals[k][1], t.vals[k][2]
             if not any(o[0] == a and (o[1] - lat) ** 2 + (o[2] - lon) ** 2 < (0.5 * NM_RAD) ** 2 for o in out):
                 out.append((a, lat, lon, near_dr))
