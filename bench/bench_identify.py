@@ -51,7 +51,7 @@ def cold_starts(alm, T, doc, per_size=40):
     from engine.timescale import parse_utc
     print("1. cold start inside fix: DR 200-600 nmi off, unlabelled contacts (%d sessions per size)" % per_size)
     print("   'right': every image right and no doubt about them (the fix's error median and share within its")
-    print("   99.9 %% ellipse); 'hedged': several positions fit or images uncertain, said in doubts")
+    print("   99.9 % ellipse); 'hedged': several positions fit or images uncertain, said in doubts")
     print("   contacts  truth among fits  right  (median nmi, in ellipse)  hedged  refused  WRONG images unhedged"
           "  s/session")
     rnd = random.Random(7)

@@ -82,6 +82,9 @@ def reduce_session(text, alm=None, at_us=None, deviation_offset="auto", relabel=
     if why is not None:
         raise _doubts.NoConsistentFix(why)
     result["doubts"] = _doubts.assess(s, alm, result, ident, at_us, deviation_offset, diagnose)
+    if any(d["code"] == "long_run" for d in result["doubts"]):
+        # said once: the doubt replaces the fix's own note on the running fix
+        result["warnings"] = [w for w in result["warnings"] if not w.startswith("running fix over ")]
     if ident is not None:
         result["identification"] = {"searched": ident["searched"], "dr_explains": ident["dr_explains"],
                                     "candidates": ident["candidates"], "fallback": ident["fallback"]}

@@ -64,8 +64,10 @@ def test_clean_sessions_have_no_doubt_and_a_long_run_says_so():
     d = session("both_sides")                     # 13.5 h from the morning to the evening contacts
     r = reduce(d)
     assert codes(r) == ["long_run"] and "13.5 h" in r["doubts"][0]["message"]
+    assert not any(w.startswith("running fix over") for w in r["warnings"])      # said once, as the doubt
     d["track"]["velocity_sigma_kn"] = 0.5         # the navigator states how well course and speed are known
-    assert reduce(d)["doubts"] == []
+    r = reduce(d)
+    assert r["doubts"] == [] and any(w.startswith("running fix over 13.5 h") for w in r["warnings"])
 
 
 @pytest.mark.parametrize("name, spoil, words", [
