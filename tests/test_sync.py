@@ -295,16 +295,33 @@ def test_damaged_archive_is_never_acknowledged(tmp_path):
     assert vt.fw.log.confirmed_seq == confirmed and device_records(vt) == held and len(held) >= 25
 
 
+def first_leaf_page(path, table):
+    """(page number, page size) of the first leaf page of ``table`` in the main file (SQLite's
+    dbstat table, sqlite.org/dbstat.html)."""
+    import sqlite3
+    c = sqlite3.connect(path)
+    try:
+        size = c.execute("PRAGMA page_size").fetchone()[0]
+        pages = [r[0] for r in c.execute("SELECT pageno FROM dbstat WHERE name=? AND pagetype='leaf' "
+                                         "ORDER BY pageno", (table,))]
+    finally:
+        c.close()
+    assert len(pages) >= 2, "the table %s needs several leaf pages for this test" % table
+    return pages[0], size
+
+
 def test_archive_damaged_during_the_sync_is_not_acknowledged(tmp_path, monkeypatch):
-    """The file is damaged after the sync opened it (8 KB of random bytes in its middle, between a
-    COMMIT and the ACK): the read-back through a fresh connection fails SQLite's quick_check and
-    nothing is acknowledged; the timer keeps every record."""
+    """The file is damaged after the sync opened it, between a COMMIT and the ACK: the first leaf
+    page of the contacts table, written by an earlier sync and read by nothing the sync reads back
+    (the proof reads the log_records rows of the range).  Only the read-back's SQLite quick_check,
+    through a fresh connection, finds it: nothing is acknowledged; the timer keeps every record."""
     db = str(tmp_path / "a.sqlite3")
     vt = VirtualTimer(contacts=presses(400, step_s=2))
     vt.run_contacts()
     conn = archive.connect(db)
     sync.sync(TimerClient(vt.loopback()), conn, progress=False)
     conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+    page, size = first_leaf_page(db, "contacts")
     press_more(vt, 40)
     held = device_records(vt)
     confirmed = vt.fw.log.confirmed_seq
@@ -312,7 +329,10 @@ def test_archive_damaged_during_the_sync_is_not_acknowledged(tmp_path, monkeypat
 
     def store_then_damage(c, device_id, records, log_id=0):
         out = real(c, device_id, records, log_id)
-        damage(db)
+        rng = random.Random(11)
+        with open(db, "r+b") as f:                  # the whole page overwritten (a stray write)
+            f.seek((page - 1) * size)
+            f.write(bytes(rng.randrange(256) for _ in range(size)))
         return out
     monkeypatch.setattr(archive, "store_records", store_then_damage)
     with pytest.raises(archive.ArchiveDamaged, match="is damaged .*NOT acknowledged: the timer keeps them"):
