@@ -265,8 +265,28 @@ def sheet_figure(fix, track=None, truth=None, title=None, radius_nm=None):
              fontweight="bold")
     fig.text(0.5, 0.947, "; ".join(["Mercator-correct local chart, lines of position at the fix epoch"] + sub),
              ha="center", fontsize=8.5, color="0.25")
+    _doubts_box(ax, fix.get("doubts"))
     _cautions(fig)
     return fig
+
+
+DOUBTS_SHOWN = 4
+
+
+def _doubts_box(ax, doubts):
+    """The fix's doubts (``limbclock-fix/1`` ``doubts``) in a red-edged box across the top of the
+    chart: a doubtful fix is never drawn without them (at most ``DOUBTS_SHOWN``, then how many more)."""
+    if not doubts:
+        return
+    lines = ["DOUBTS about this fix (%d): read them before you use it" % len(doubts)]
+    for d in doubts[:DOUBTS_SHOWN]:
+        lines += textwrap.wrap("[%s] %s" % (d["code"], d["message"]), 115, initial_indent="- ",
+                               subsequent_indent="  ")
+    if len(doubts) > DOUBTS_SHOWN:
+        lines.append("... and %d more (limbclock fix)" % (len(doubts) - DOUBTS_SHOWN))
+    ax.text(0.5, 0.985, "\n".join(lines), transform=ax.transAxes, ha="center", va="top", fontsize=6.8, multialignment="left",
+            color="#a00000", zorder=10, linespacing=1.25,
+            bbox=dict(boxstyle="round,pad=0.4", facecolor="white", edgecolor="#a00000", alpha=0.92))
 
 
 def contact_timeline(fix, path, predicted=None, title=None):

@@ -43,6 +43,21 @@ def test_plotting_sheet_png_and_svg(tmp_path):
     assert "08:00:00 Moon UL i03" in text
 
 
+def test_a_doubtful_fix_is_drawn_with_its_doubts(tmp_path):
+    doubts = [{"code": "far_from_dr", "message": "the fix is 363 nmi from the DR, far beyond the DR's stated "
+                                                 "uncertainty"},
+              {"code": "likely_slip", "message": "likely slip in the DR's latitude sign"}]
+    svg = plots.plotting_sheet(dict(FIX_FULL, doubts=doubts), str(tmp_path / "sheet.svg"), track=TRACK)
+    text = read(svg)
+    assert "DOUBTS about this fix (2)" in text and "[far_from_dr] the fix is 363 nmi" in text
+    assert "[likely_slip]" in text
+    many = [{"code": "c%d" % k, "message": "m%d" % k} for k in range(6)]
+    text = read(plots.plotting_sheet(dict(FIX_FULL, doubts=many), str(tmp_path / "many.svg")))
+    assert "[c3] m3" in text and "[c4]" not in text and "and 2 more" in text
+    clean = read(plots.plotting_sheet(dict(FIX_FULL, doubts=[]), str(tmp_path / "clean.svg")))
+    assert "DOUBTS" not in clean
+
+
 def test_contact_timeline(tmp_path):
     pred = [{"utc": "2031-05-14T07:49:58Z", "image": "i02"}, {"utc": "2031-05-14T08:10:30Z", "image": "i04"}]
     w, h = png_size(plots.contact_timeline(FIX_FULL, str(tmp_path / "t.png"), predicted=pred))
