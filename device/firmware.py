@@ -588,7 +588,13 @@ class Firmware:
         if fix is None:
             self._ack("-", "fix failed")
         else:
-            self._ack("...", "FIX %d used %d rej" % (fix["contacts_used"], fix["rejected"]))
+            msg = "FIX %d used %d rej" % (fix["contacts_used"], fix["rejected"])
+            if fix.get("doubts"):
+                # a doubtful fix is said so on the display and by its beeps (engine/doubts.py)
+                msg += " DOUBT %s" % fix["doubts"][0]
+                self._ack("..-", msg)
+            else:
+                self._ack("...", msg)
 
     def _ack(self, pattern, message):
         self.hw.buzz(pattern)

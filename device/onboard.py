@@ -384,7 +384,9 @@ class Onboard:
                     "ellipse_95": {"major_nm": e["major_nm"], "minor_nm": e["minor_nm"],
                                    "major_axis_deg": e["major_axis_deg"]},
                     "contacts_used": r["contacts_used"], "rejected": len(r["rejected"]),
-                    "contacts": len(r["images"]), "warnings": len(r["warnings"])}
+                    "contacts": len(r["images"]), "warnings": len(r["warnings"]),
+                    # the doubts' codes (engine/doubts.py): the display says the first, never a bare fix
+                    "doubts": [d["code"] for d in r.get("doubts") or ()]}
         return self.fix
 
     def fix_lines(self):

@@ -102,11 +102,15 @@ def layout(lines):
         else:
             items.append(("t", 0, 13, l4[:COLS], 1))
         ell = l5.split()
+        doubt = words[6] if len(words) >= 7 and words[5] == "DOUBT" else None
         if len(ell) >= 3:
             items.append(("t", 0, 37, ("95% " + ell[1])[:COLS], 1))
-            items.append(("t", 0, 46, ("axis " + ell[2] + "\xb0")[:COLS], 1))
+            if doubt is None:
+                items.append(("t", 0, 46, ("axis " + ell[2] + "\xb0")[:COLS], 1))
         else:
             items.append(("t", 0, 37, l5[:COLS], 1))
+        if doubt is not None:               # a doubtful fix: its first doubt, inverted, instead of the axis
+            items.append(("i", 0, 46, ("DOUBT " + doubt)[:COLS], 1))
         items.append(("t", 0, 56, ("%s %s" % (time, _short_clock(l0).split()[0]))[:COLS], 1))
         return "fix", items
     items.append(("t", 0, 10, ("%s %s" % (time, _mode(l2)))[:COLS], 1))

@@ -30,6 +30,8 @@ SAMPLES = {
              "NEXT i06 SUN LL rise", "in 30:28 Zn 156"],
     "fix": ["LOCKED +-31us", "16:30:55 UTC", "S1 SUN LL #14", "FIX 14 used 0 rej",
             "44\u00b058.0'N 006\u00b025.1'W", "95% 3.8x2.3nm 154"],
+    "fix-doubt": ["LOCKED +-31us", "16:30:55 UTC", "S1 SUN LL #14", "FIX 14 used 0 rej DOUBT long_run",
+                  "44\u00b058.0'N 006\u00b025.1'W", "95% 3.8x2.3nm 154"],
     "no-time": ["NO TIME - wait GPS", "--:--:--", "S1 SUN LL #-", "ready", "NEXT: -", "no time yet"],
     "no-plan": ["LOCKED +-31us", "07:58:10 UTC", "S1 SUN LL #-", "ready", "NEXT: -", "no track: push it"],
 }

@@ -93,7 +93,9 @@ def test_demo_shows_the_timers_own_display_and_fix(demo):
     # the fix gesture: the display and the status carry the timer's own fix
     shown = timer["display"][2]["lines"]
     f = ob["fix"]
-    assert shown[3] == "FIX %d used %d rej" % (f["contacts_used"], f["rejected"])
+    # the scenario's run of 7.8 h on an assumed course and speed: the timer's fix says its doubt too
+    assert f["doubts"] == ["long_run"]
+    assert shown[3] == "FIX %d used %d rej DOUBT long_run" % (f["contacts_used"], f["rejected"])
     from device.onboard import fmt_position
     assert shown[4] == fmt_position(f["lat_deg"], f["lon_deg"]) and shown[5].startswith("95% ")
     assert f["contacts_used"] + f["rejected"] == s["contacts"] and f["utc"] == s["fix"]["utc"]

@@ -60,7 +60,7 @@ def test_virtual_timer_fix_within_0_3_nmi_of_truth(name):
     assert fix["contacts"] == len(doc["contacts"]) and fix["contacts_used"] + fix["rejected"] == fix["contacts"]
     # the display shows it, degrees-minutes, with the ellipse, for a minute after the gesture
     lines = st["display"]
-    assert lines[3] == "FIX %d used %d rej" % (fix["contacts_used"], fix["rejected"])
+    assert fix["doubts"] == [] and lines[3] == "FIX %d used %d rej" % (fix["contacts_used"], fix["rejected"])
     assert lines[4] == "%s %s" % (fmt_lat(fix["lat_deg"]), fmt_lon(fix["lon_deg"]))
     assert lines[5].startswith("95%% %.1fx" % fix["ellipse_95"]["major_nm"])
     vt.advance_to(vt.world.t_us + onboard_show_s() * 1000000 + 2000000)
@@ -437,6 +437,22 @@ def test_relabelling_not_kept_gives_back_the_first_fix():
     assert distance_nm(got["lat_deg"], got["lon_deg"], doc["truth"]["lat_deg"], doc["truth"]["lon_deg"]) < 0.3
 
 
+def test_a_doubtful_onboard_fix_says_so_on_the_display_and_in_its_beeps():
+    # both_sides: 13.5 h from the morning to the evening contacts on an assumed course and speed, the
+    # long-run doubt of engine/doubts.py; the timer must not show that fix as a bare one
+    doc = load("both_sides")
+    vt = VirtualTimer(session=doc, conditions=True, fix_at_us=last_utc(doc) + 20000000)
+    vt.run_contacts()
+    st = TimerClient(vt.loopback(faults=0.0)).status()
+    fix = st["onboard_fix"]
+    assert st["onboard_fix_error"] is None and fix["doubts"] == ["long_run"]
+    assert st["display"][3] == "FIX %d used %d rej DOUBT long_run" % (fix["contacts_used"], fix["rejected"])
+    assert [p for t, p in vt.hw.buzzes if p in ("...", "..-")][-1] == "..-"
+    from device import screens
+    kind, items = screens.layout(st["display"])
+    assert kind == "fix" and ("i", 0, 46, "DOUBT long_run", 1) in items
+
+
 def test_a_press_during_the_onboard_fix_is_stamped_and_logged_exactly():
     # a slow board: every read of the tick counter (once per model evaluation through the coop hook)
     # costs 10 ms of simulated time, so the reduction takes tens of seconds while the world goes on
@@ -458,7 +474,7 @@ def test_a_press_during_the_onboard_fix_is_stamped_and_logged_exactly():
     fix = vt.fw.onboard.fix
     assert fix is not None and fix["contacts_used"] + fix["rejected"] == 10
     beeps = vt.hw.buzzes
-    done = [t for t, p in beeps if p == "..." and t > start][0]          # the fix's result
+    done = [t for t, p in beeps if p in ("...", "..-") and t > start][0]   # the fix's result (..- with a doubt)
     assert done - start > 15000000                                       # it did take a while
     rec = [r for r in vt.fw.log.records() if r.kind == L.CONTACT][-1]
     assert rec.seq > 10 and rec.time_state == 1 and abs(rec.utc_us - press) <= 1000
