@@ -275,6 +275,18 @@ def _time_blunders(ts):
 _NO_GROUP = 0xFFFF                 # a line whose image has no shared term (sigma 0)
 
 
+def _quad_form(Minv, h, n, base):
+    """base + h' Minv h over the first ``n`` entries of ``h`` (``Minv``: n rows)."""
+    quad = base
+    for a in range(n):
+        ma = Minv[a]
+        s = 0.0
+        for b in range(n):
+            s += ma[b] * h[b]
+        quad += h[a] * s
+    return quad
+
+
 def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, options=None):
     """Fix of a validated Session (``engine.session``) with almanac ``alm``.
 
@@ -591,20 +603,8 @@ def solve_fix(session, alm, at_us=None, deviation_offset="auto", dut1_us=None, o
                 for a in range(m):
                     h[a] -= acc[1 + a] * f
                 base = sg * f
-            quad = base
-            for a in range(m):
-                ka = Kinv[a]
-                s = 0.0
-                for b in range(m):
-                    s += ka[b] * h[b]
-                quad += h[a] * s
-            quad_s = base
-            for a in range(q):
-                ka = Ksinv[a]
-                s = 0.0
-                for b in range(q):
-                    s += ka[b] * h[b]
-                quad_s += h[a] * s
+            quad = _quad_form(Kinv, h, m, base)
+            quad_s = _quad_form(Ksinv, h, q, base)
             sinv_ii = 1.0 / d - quad_s / (d * d)           # (S^-1)_ii
             m_ii = 1.0 / d - quad / (d * d)                # (S^-1 - S^-1 A N^-1 A' S^-1)_ii
             if m_ii <= 1e-9 * sinv_ii:
